@@ -1,0 +1,14 @@
+//! assay: calibrate the parameters of expensive simulators.
+//!
+//! A pipeline of stages, each a module: [`study`] → [`design`] → [`runs`] →
+//! [`surrogate`] → [`calibrate`], with [`record`] for the YAML records they leave.
+//! The numerical stages (design, surrogate, calibrate) open no files and print nothing.
+#![forbid(unsafe_code)]
+
+pub mod study;
+pub mod design;
+pub mod record;
+pub mod rng;
+pub mod progress;
+pub mod runs;
+pub mod surrogate;

@@ -1,0 +1,543 @@
+//! From the text of a study file to a checked [`Study`]: deserialise (unknown keys and
+//! wrong types are caught here, with serde's path and line), then one check per
+//! invariant, each reported with file, key path and line.
+
+use super::data::FieldData;
+use super::error::{StudyError, StudyErrors};
+use super::locate::LineIndex;
+use super::placeholder;
+use super::spec::*;
+use std::collections::{BTreeMap, BTreeSet};
+use std::path::{Component, Path, PathBuf};
+
+pub use super::spec::{DesignMethod, KernelChoice, MeanChoice};
+
+/// A prior, truncated to the parameter's range.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Prior {
+    Uniform,
+    Normal { mean: f64, sd: f64 },
+    LogNormal { mu: f64, sigma: f64 },
+}
+
+/// One calibration parameter.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Parameter {
+    pub name: String,
+    pub unit: Option<String>,
+    pub lo: f64,
+    pub hi: f64,
+    pub prior: Prior,
+}
+
+/// A template file to render into each run folder.
+#[derive(Debug, Clone, PartialEq)]
+pub struct FileTemplate {
+    /// Path of the template (resolved against the study folder).
+    pub path: PathBuf,
+    /// Template text.
+    pub text: String,
+    /// Destination, relative to the run folder.
+    pub to: String,
+}
+
+pub use super::spec::OutputFormatWire as OutputFormat;
+
+/// What the simulator writes and where.
+#[derive(Debug, Clone, PartialEq)]
+pub struct OutputSpec {
+    pub file: String,
+    pub format: OutputFormat,
+    pub x: Option<String>,
+    pub y: Vec<String>,
+}
+
+/// How to run the simulator.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Simulator {
+    /// argv with placeholders; `command[0]` containing `/` is relative to the study folder.
+    pub command: Vec<String>,
+    pub files: Vec<FileTemplate>,
+    pub output: OutputSpec,
+    pub timeout_s: f64,
+    pub retries: u32,
+}
+
+/// Measurement noise of one experiment.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Noise {
+    Sd(f64),
+    Column(String),
+}
+
+/// One experiment with its data.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Experiment {
+    pub name: String,
+    /// Settings rendered as placeholder text.
+    pub settings: BTreeMap<String, String>,
+    pub data_path: PathBuf,
+    pub data: FieldData,
+    pub noise: Noise,
+}
+
+/// Design settings after defaults.
+#[derive(Debug, Clone, PartialEq)]
+pub struct DesignParams {
+    pub method: DesignMethod,
+    pub points: usize,
+    pub seed: u64,
+}
+
+/// Surrogate settings after defaults.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct SurrogateParams {
+    pub kernel: KernelChoice,
+    pub mean: MeanChoice,
+}
+
+/// Calibration settings after defaults.
+#[derive(Debug, Clone, PartialEq)]
+pub struct CalibrationParams {
+    pub chains: usize,
+    pub warmup: usize,
+    pub draws: usize,
+    pub seed: u64,
+}
+
+/// A checked study.
+#[derive(Debug, Clone)]
+pub struct Study {
+    pub name: String,
+    /// The study file as given.
+    pub file: PathBuf,
+    /// The folder relative paths are resolved against.
+    pub dir: PathBuf,
+    pub parameters: Vec<Parameter>,
+    pub simulator: Simulator,
+    pub experiments: Vec<Experiment>,
+    pub design: DesignParams,
+    pub jobs: Option<usize>,
+    pub surrogate: SurrogateParams,
+    pub calibration: CalibrationParams,
+}
+
+impl Study {
+    /// Files this study reads besides itself (data and templates), for provenance.
+    pub fn input_files(&self) -> Vec<PathBuf> {
+        let mut v = vec![self.file.clone()];
+        v.extend(self.simulator.files.iter().map(|f| f.path.clone()));
+        v.extend(self.experiments.iter().map(|e| e.data_path.clone()));
+        v
+    }
+
+    /// Names of the parameters, in order.
+    pub fn parameter_names(&self) -> Vec<String> {
+        self.parameters.iter().map(|p| p.name.clone()).collect()
+    }
+}
+
+/// Read and check the study at `path`.
+///
+/// # Errors
+/// Every problem found, each naming the file, the key path and the line.
+pub fn load(path: &Path) -> Result<Study, StudyErrors> {
+    let text = std::fs::read_to_string(path).map_err(|e| {
+        StudyErrors(vec![StudyError {
+            file: path.to_path_buf(),
+            key: String::new(),
+            line: None,
+            message: format!("cannot read the study file: {e}"),
+        }])
+    })?;
+    let dir = path
+        .parent()
+        .map(|p| {
+            if p.as_os_str().is_empty() {
+                PathBuf::from(".")
+            } else {
+                p.to_path_buf()
+            }
+        })
+        .unwrap_or_else(|| PathBuf::from("."));
+    parse(&text, path, &dir, &|p: &Path| std::fs::read_to_string(p))
+}
+
+struct Checker<'a> {
+    file: &'a Path,
+    index: LineIndex,
+    errors: Vec<StudyError>,
+}
+
+impl Checker<'_> {
+    fn err(&mut self, key: impl Into<String>, message: impl Into<String>) {
+        let key = key.into();
+        let line = self.index.line(&key);
+        self.errors.push(StudyError {
+            file: self.file.to_path_buf(),
+            key,
+            line,
+            message: message.into(),
+        });
+    }
+}
+
+fn is_folder_name(s: &str) -> bool {
+    !s.is_empty()
+        && s != "."
+        && s != ".."
+        && s.chars()
+            .all(|c| c.is_ascii_alphanumeric() || c == '.' || c == '_' || c == '-')
+}
+
+/// Is `p` a relative path that stays inside its base folder?
+pub(crate) fn is_contained_relative(p: &str) -> bool {
+    let path = Path::new(p);
+    !p.is_empty()
+        && path
+            .components()
+            .all(|c| matches!(c, Component::Normal(_) | Component::CurDir))
+}
+
+/// Split serde_yaml's " at line N column M" off a message.
+fn split_location(msg: &str) -> String {
+    match msg.rfind(" at line ") {
+        Some(i) => msg[..i].to_string(),
+        None => msg.to_string(),
+    }
+}
+
+/// Check the study `text` of file `file`; relative paths resolve against `dir`, files
+/// are read through `read`.
+///
+/// # Errors
+/// Every problem found, in file order.
+pub fn parse(
+    text: &str,
+    file: &Path,
+    dir: &Path,
+    read: &dyn Fn(&Path) -> std::io::Result<String>,
+) -> Result<Study, StudyErrors> {
+    let spec: StudySpec = match serde_yaml::from_str(text) {
+        Ok(s) => s,
+        Err(e) => {
+            let line = e.location().map(|l| l.line());
+            let full = e.to_string();
+            let msg = split_location(&full);
+            // serde_yaml writes "path: message" when it knows the path.
+            let (key, message) = match msg.split_once(": ") {
+                Some((k, m))
+                    if !k.contains(' ') && (k.contains('.') || k.contains('[') || k.chars().all(|c| c.is_ascii_alphanumeric() || c == '_')) =>
+                {
+                    (k.to_string(), m.to_string())
+                }
+                _ => (String::new(), msg),
+            };
+            let message = message.replace("unknown field", "unknown key");
+            return Err(StudyErrors(vec![StudyError {
+                file: file.to_path_buf(),
+                key,
+                line,
+                message,
+            }]));
+        }
+    };
+    let mut c = Checker {
+        file,
+        index: LineIndex::new(text),
+        errors: Vec::new(),
+    };
+
+    if !is_folder_name(&spec.name) {
+        c.err(
+            "name",
+            format!("`{}` is not a valid study name (expected [A-Za-z0-9._-]+)", spec.name),
+        );
+    }
+
+    // Parameters.
+    if spec.parameters.is_empty() {
+        c.err("parameters", "at least one parameter is needed");
+    }
+    let mut parameters = Vec::new();
+    let mut seen = BTreeSet::new();
+    for (i, p) in spec.parameters.iter().enumerate() {
+        let key = format!("parameters[{i}]");
+        if !placeholder::is_identifier(&p.name) {
+            c.err(
+                format!("{key}.name"),
+                format!("`{}` is not a valid parameter name (expected [A-Za-z_][A-Za-z0-9_]*)", p.name),
+            );
+        } else if p.name == "run_dir" || p.name == "run_id" {
+            c.err(format!("{key}.name"), format!("`{}` is reserved for the run folder placeholders", p.name));
+        } else if !seen.insert(p.name.clone()) {
+            c.err(format!("{key}.name"), format!("duplicate parameter name `{}`", p.name));
+        }
+        let [lo, hi] = p.range;
+        if !(lo.is_finite() && hi.is_finite()) {
+            c.err(format!("{key}.range"), format!("range [{lo}, {hi}] must be finite"));
+        } else if lo >= hi {
+            c.err(
+                format!("{key}.range"),
+                format!("range [{lo}, {hi}] is reversed or empty (expected [low, high] with low < high)"),
+            );
+        }
+        let prior = match p.prior {
+            PriorSpec::Uniform => Prior::Uniform,
+            PriorSpec::Normal { mean, sd } => {
+                if !(sd > 0.0 && sd.is_finite()) {
+                    c.err(format!("{key}.prior.normal.sd"), format!("sd {sd} must be > 0"));
+                } else if !(lo..=hi).contains(&mean) {
+                    c.err(
+                        format!("{key}.prior.normal.mean"),
+                        format!("prior mean {mean} is outside the range [{lo}, {hi}]"),
+                    );
+                }
+                Prior::Normal { mean, sd }
+            }
+            PriorSpec::Lognormal { mu, sigma } => {
+                if !(sigma > 0.0 && sigma.is_finite()) {
+                    c.err(format!("{key}.prior.lognormal.sigma"), format!("sigma {sigma} must be > 0"));
+                } else if hi <= 0.0 {
+                    c.err(
+                        format!("{key}.prior"),
+                        format!("a lognormal prior needs a range with positive values, got [{lo}, {hi}]"),
+                    );
+                } else if !(lo..=hi).contains(&mu.exp()) {
+                    c.err(
+                        format!("{key}.prior.lognormal.mu"),
+                        format!("prior median exp({mu}) = {} is outside the range [{lo}, {hi}]", mu.exp()),
+                    );
+                }
+                Prior::LogNormal { mu, sigma }
+            }
+        };
+        parameters.push(Parameter {
+            name: p.name.clone(),
+            unit: p.unit.clone(),
+            lo,
+            hi,
+            prior,
+        });
+    }
+
+    // Simulator.
+    let sim = &spec.simulator;
+    if sim.command.is_empty() || sim.command[0].is_empty() {
+        c.err("simulator.command", "the command needs at least the program");
+    }
+    if !(sim.timeout_s > 0.0 && sim.timeout_s.is_finite()) {
+        c.err("simulator.timeout_s", format!("timeout {} must be > 0 seconds", sim.timeout_s));
+    }
+    if !is_contained_relative(&sim.output.file) {
+        c.err(
+            "simulator.output.file",
+            format!("`{}` must be a relative path inside the run folder (no `..`, not absolute)", sim.output.file),
+        );
+    }
+    if sim.output.y.is_empty() {
+        c.err("simulator.output.y", "name at least one output quantity");
+    }
+    let mut files = Vec::new();
+    for (i, f) in sim.files.iter().enumerate() {
+        let key = format!("simulator.files[{i}]");
+        if !is_contained_relative(&f.to) {
+            c.err(
+                format!("{key}.to"),
+                format!("`{}` must be a relative path inside the run folder (no `..`, not absolute)", f.to),
+            );
+        }
+        let path = dir.join(&f.template);
+        match read(&path) {
+            Ok(text) => files.push(FileTemplate { path, text, to: f.to.clone() }),
+            Err(e) => c.err(
+                format!("{key}.template"),
+                format!("cannot read template `{}`: {e}", path.display()),
+            ),
+        }
+    }
+
+    // Experiments.
+    if spec.experiments.is_empty() {
+        c.err("experiments", "at least one experiment with field data is needed");
+    }
+    let mut experiments = Vec::new();
+    let mut seen = BTreeSet::new();
+    for (i, e) in spec.experiments.iter().enumerate() {
+        let key = format!("experiments[{i}]");
+        if !is_folder_name(&e.name) {
+            c.err(format!("{key}.name"), format!("`{}` is not a valid experiment name (expected [A-Za-z0-9._-]+)", e.name));
+        } else if !seen.insert(e.name.clone()) {
+            c.err(format!("{key}.name"), format!("duplicate experiment name `{}`", e.name));
+        }
+        let mut settings = BTreeMap::new();
+        for (k, v) in &e.settings {
+            if !placeholder::is_identifier(k) {
+                c.err(format!("{key}.settings.{k}"), format!("`{k}` is not a valid setting name (expected [A-Za-z_][A-Za-z0-9_]*)"));
+            } else if parameters.iter().any(|p| &p.name == k) || k == "run_dir" || k == "run_id" {
+                c.err(format!("{key}.settings.{k}"), format!("setting `{k}` clashes with a parameter or run placeholder"));
+            }
+            let text = match v {
+                SettingValue::Number(x) => placeholder::format_number(*x),
+                SettingValue::Text(s) => s.clone(),
+            };
+            settings.insert(k.clone(), text);
+        }
+        let noise = match &e.noise {
+            NoiseSpec::Sd(sd) => {
+                if !(*sd > 0.0 && sd.is_finite()) {
+                    c.err(format!("{key}.noise.sd"), format!("sd {sd} must be > 0"));
+                }
+                Noise::Sd(*sd)
+            }
+            NoiseSpec::SdColumn(col) => Noise::Column(col.clone()),
+            NoiseSpec::Unknown { .. } => {
+                c.err(
+                    format!("{key}.noise.unknown"),
+                    "an unknown noise variance is not supported in this version; give {sd: v} or {sd_column: name}",
+                );
+                Noise::Sd(1.0)
+            }
+        };
+        let data_path = dir.join(&e.data);
+        let sd_col = match &noise {
+            Noise::Column(c) => Some(c.as_str()),
+            Noise::Sd(_) => None,
+        };
+        let data = match read(&data_path) {
+            Err(err) => {
+                c.err(format!("{key}.data"), format!("cannot read data file `{}`: {err}", data_path.display()));
+                None
+            }
+            Ok(text) => match FieldData::parse(&text, sim.output.x.as_deref(), &sim.output.y, sd_col) {
+                Ok(d) => Some(d),
+                Err((line, msg)) => {
+                    c.err(format!("{key}.data"), format!("{}:{line}: {msg}", data_path.display()));
+                    None
+                }
+            },
+        };
+
+        // Placeholders: every name must be known for this experiment.
+        let mut known: BTreeSet<String> = parameters.iter().map(|p| p.name.clone()).collect();
+        known.extend(settings.keys().cloned());
+        known.insert("run_dir".into());
+        known.insert("run_id".into());
+        for (j, arg) in sim.command.iter().enumerate() {
+            check_placeholders(&mut c, &format!("simulator.command[{j}]"), arg, &known, &e.name, None);
+        }
+        for (j, f) in files.iter().enumerate() {
+            check_placeholders(&mut c, &format!("simulator.files[{j}].template"), &f.text, &known, &e.name, Some(&f.path));
+        }
+        if let Some(data) = data {
+            experiments.push(Experiment {
+                name: e.name.clone(),
+                settings,
+                data_path,
+                data,
+                noise,
+            });
+        }
+    }
+
+    let d = &spec.design;
+    let points = d.points.unwrap_or(10 * parameters.len().max(1));
+    if points < 2 {
+        c.err("design.points", format!("{points} points are too few (at least 2)"));
+    }
+    if spec.execution.jobs == Some(0) {
+        c.err("execution.jobs", "jobs must be at least 1");
+    }
+    let cal = &spec.calibration;
+    if cal.chains == 0 {
+        c.err("calibration.chains", "chains must be at least 1");
+    }
+    if cal.draws < 10 {
+        c.err("calibration.draws", format!("{} draws per chain are too few (at least 10)", cal.draws));
+    }
+
+    if !c.errors.is_empty() {
+        // Dedupe identical messages (a placeholder error repeats per experiment).
+        let mut seen = BTreeSet::new();
+        c.errors.retain(|e| seen.insert(e.to_string()));
+        c.errors.sort_by_key(|e| e.line.unwrap_or(usize::MAX));
+        return Err(StudyErrors(c.errors));
+    }
+    Ok(Study {
+        name: spec.name.clone(),
+        file: file.to_path_buf(),
+        dir: dir.to_path_buf(),
+        parameters,
+        simulator: Simulator {
+            command: sim.command.clone(),
+            files,
+            output: OutputSpec {
+                file: sim.output.file.clone(),
+                format: sim.output.format,
+                x: sim.output.x.clone(),
+                y: sim.output.y.clone(),
+            },
+            timeout_s: sim.timeout_s,
+            retries: sim.retries,
+        },
+        experiments,
+        design: DesignParams {
+            method: d.method,
+            points,
+            seed: d.seed,
+        },
+        jobs: spec.execution.jobs,
+        surrogate: SurrogateParams {
+            kernel: spec.surrogate.kernel,
+            mean: spec.surrogate.mean,
+        },
+        calibration: CalibrationParams {
+            chains: cal.chains,
+            warmup: cal.warmup,
+            draws: cal.draws,
+            seed: cal.seed,
+        },
+    })
+}
+
+fn check_placeholders(
+    c: &mut Checker<'_>,
+    key: &str,
+    text: &str,
+    known: &BTreeSet<String>,
+    experiment: &str,
+    template: Option<&Path>,
+) {
+    let line_in = |offset: usize| text[..offset.min(text.len())].matches('\n').count() + 1;
+    let where_ = |offset: usize| match template {
+        Some(p) => format!(" (template {}:{})", p.display(), line_in(offset)),
+        None => String::new(),
+    };
+    match placeholder::parse(text) {
+        Err(e) => {
+            let w = where_(e.offset);
+            c.err(key, format!("{}{w}", e.message));
+        }
+        Ok(pieces) => {
+            let mut offset = 0;
+            for p in pieces {
+                match p {
+                    placeholder::Piece::Text(t) => offset += t.len(),
+                    placeholder::Piece::Name(n) => {
+                        if !known.contains(n) {
+                            let w = where_(offset);
+                            c.err(
+                                key,
+                                format!(
+                                    "unknown placeholder `{{{{{n}}}}}` for experiment `{experiment}`{w} (known: {})",
+                                    known.iter().cloned().collect::<Vec<_>>().join(", ")
+                                ),
+                            );
+                        }
+                        offset += n.len() + 4;
+                    }
+                }
+            }
+        }
+    }
+}

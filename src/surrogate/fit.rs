@@ -1,0 +1,201 @@
+//! Hyperparameters by maximising the log marginal likelihood: L-BFGS (argmin) from
+//! several space-filling starts in log-hyperparameter space, run in parallel.
+
+use super::gp::{Gp, Hyper, Trend};
+use super::kernel::Kernel;
+use super::SurrogateError;
+use argmin::core::{CostFunction, Executor, Gradient, State};
+use argmin::solver::linesearch::MoreThuenteLineSearch;
+use argmin::solver::quasinewton::LBFGS;
+use ndarray::{Array1, Array2, ArrayView1, ArrayView2};
+use rand::Rng;
+use rayon::prelude::*;
+
+/// Box for the log hyperparameters on standardised outputs and unit-box inputs.
+/// Outside it a quadratic penalty pulls the search back; inside it the likelihood
+/// alone decides.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct HyperBounds {
+    pub ln_signal_var: (f64, f64),
+    pub ln_length_scale: (f64, f64),
+    pub ln_nugget: (f64, f64),
+}
+
+impl Default for HyperBounds {
+    fn default() -> Self {
+        Self {
+            // Standardised outputs have variance 1; a trend can leave far less.
+            ln_signal_var: (1e-4f64.ln(), 1e2f64.ln()),
+            // In the unit box: from a hundredth of the range to far beyond it.
+            ln_length_scale: (1e-2f64.ln(), 1e2f64.ln()),
+            // The floor keeps K well conditioned for smooth, noise-free simulators.
+            ln_nugget: (1e-8f64.ln(), 1e-1f64.ln()),
+        }
+    }
+}
+
+/// Settings of the search.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct FitParams {
+    pub kernel: Kernel,
+    pub trend: Trend,
+    pub bounds: HyperBounds,
+    /// Starts of L-BFGS (the first is a fixed central guess).
+    pub n_starts: usize,
+    pub max_iters: u64,
+}
+
+const PENALTY: f64 = 1e3;
+
+fn bounds_of(b: &HyperBounds, i: usize, n: usize) -> (f64, f64) {
+    if i == 0 {
+        b.ln_signal_var
+    } else if i == n - 1 {
+        b.ln_nugget
+    } else {
+        b.ln_length_scale
+    }
+}
+
+// argmin's executor needs an owned problem; the copies are n × d numbers.
+struct Objective {
+    x: Array2<f64>,
+    y: Array1<f64>,
+    params: FitParams,
+}
+
+impl Objective {
+    fn bounds(&self, i: usize, n: usize) -> (f64, f64) {
+        bounds_of(&self.params.bounds, i, n)
+    }
+
+    fn eval(&self, p: &[f64]) -> Result<(f64, Vec<f64>), SurrogateError> {
+        let gp = Gp::fit(self.x.view(), self.y.view(), self.params.kernel, self.params.trend, Hyper::from_slice(p))?;
+        let mut f = -gp.ln_marginal_likelihood;
+        let mut g: Vec<f64> = gp.gradient().iter().map(|v| -v).collect();
+        for (i, v) in p.iter().enumerate() {
+            let (lo, hi) = self.bounds(i, p.len());
+            if *v < lo {
+                f += PENALTY * (lo - v).powi(2);
+                g[i] -= 2.0 * PENALTY * (lo - v);
+            } else if *v > hi {
+                f += PENALTY * (v - hi).powi(2);
+                g[i] += 2.0 * PENALTY * (v - hi);
+            }
+        }
+        Ok((f, g))
+    }
+}
+
+impl CostFunction for Objective {
+    type Param = Vec<f64>;
+    type Output = f64;
+    fn cost(&self, p: &Vec<f64>) -> Result<f64, argmin::core::Error> {
+        Ok(self.eval(p)?.0)
+    }
+}
+
+impl Gradient for Objective {
+    type Param = Vec<f64>;
+    type Gradient = Vec<f64>;
+    fn gradient(&self, p: &Vec<f64>) -> Result<Vec<f64>, argmin::core::Error> {
+        Ok(self.eval(p)?.1)
+    }
+}
+
+/// The outcome of a hyperparameter search.
+#[derive(Debug, Clone)]
+pub struct FitOutcome {
+    pub gp: Gp,
+    /// Starts that ran to the end (a start fails when K cannot be factored).
+    pub n_starts_ok: usize,
+    /// Objective evaluations summed over starts.
+    pub n_evaluations: u64,
+}
+
+/// Maximise the log marginal likelihood of `y` at inputs `x` (unit box).
+///
+/// # Errors
+/// [`SurrogateError::OptimisationFailed`] when every start fails.
+pub fn fit_hyperparameters<R: Rng + ?Sized>(
+    x: ArrayView2<f64>,
+    y: ArrayView1<f64>,
+    params: FitParams,
+    name: &str,
+    rng: &mut R,
+) -> Result<FitOutcome, SurrogateError> {
+    let d = x.ncols();
+    let b = params.bounds;
+    let mid = |(lo, hi): (f64, f64)| 0.5 * (lo + hi);
+    // Starts: a central guess (unit signal, length-scale ½, small nugget), then a Latin
+    // hypercube over a central part of the box.
+    let mut starts = vec![{
+        let mut v = vec![0.0];
+        v.extend(std::iter::repeat_n(0.5f64.ln(), d));
+        v.push(1e-6f64.ln());
+        v
+    }];
+    let extra = params.n_starts.saturating_sub(1);
+    if extra > 0 {
+        let u = crate::design::latin_hypercube(extra, d + 2, rng);
+        for i in 0..extra {
+            let mut v = Vec::with_capacity(d + 2);
+            let shrink = |(lo, hi): (f64, f64), t: f64| {
+                let c = mid((lo, hi));
+                let half = 0.35 * (hi - lo);
+                c - half + 2.0 * half * t
+            };
+            v.push(shrink((-2.0, 1.0), u[[i, 0]]));
+            for j in 0..d {
+                v.push(shrink(b.ln_length_scale, u[[i, 1 + j]]));
+            }
+            v.push(shrink(b.ln_nugget, u[[i, d + 1]]));
+            starts.push(v);
+        }
+    }
+    let results: Vec<Result<(Vec<f64>, f64, u64), String>> = starts
+        .into_par_iter()
+        .map(|init| {
+            let obj = Objective { x: x.to_owned(), y: y.to_owned(), params };
+            let solver = LBFGS::new(MoreThuenteLineSearch::new(), 7)
+                .with_tolerance_cost(1e-10)
+                .map_err(|e| e.to_string())?;
+            let res = Executor::new(obj, solver)
+                .configure(|s| s.param(init).max_iters(params.max_iters))
+                .run()
+                .map_err(|e| e.to_string())?;
+            let st = res.state();
+            let best = st.get_best_param().cloned().ok_or("no best parameter")?;
+            let evals = st.get_func_counts().values().sum::<u64>();
+            Ok((best, st.get_best_cost(), evals))
+        })
+        .collect();
+    let mut best: Option<(Vec<f64>, f64)> = None;
+    let mut n_ok = 0;
+    let mut n_eval = 0;
+    let mut last_err = String::new();
+    for r in results {
+        match r {
+            Ok((p, c, e)) => {
+                n_ok += 1;
+                n_eval += e;
+                if c.is_finite() && best.as_ref().map(|(_, bc)| c < *bc).unwrap_or(true) {
+                    best = Some((p, c));
+                }
+            }
+            Err(e) => last_err = e,
+        }
+    }
+    let (p, _) = best.ok_or_else(|| SurrogateError::OptimisationFailed { output: name.into(), reason: last_err.clone() })?;
+    // Clamp into the box so the recorded hyperparameters are inside it.
+    let clamped: Vec<f64> = p
+        .iter()
+        .enumerate()
+        .map(|(i, v)| {
+            let (lo, hi) = bounds_of(&params.bounds, i, p.len());
+            v.clamp(lo, hi)
+        })
+        .collect();
+    let gp = Gp::fit(x, y, params.kernel, params.trend, Hyper::from_slice(&clamped))?;
+    Ok(FitOutcome { gp, n_starts_ok: n_ok, n_evaluations: n_eval })
+}

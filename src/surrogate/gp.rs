@@ -1,0 +1,276 @@
+//! Gaussian-process regression at fixed hyperparameters: factorisation, log marginal
+//! likelihood with its gradient, prediction and closed-form leave-one-out.
+//!
+//! A trend h(x)ᵀβ with a flat prior on β is integrated out (generalised least squares),
+//! so predictions and variances include the trend's uncertainty.
+//!
+//! # References
+//! Rasmussen & Williams (2006), Gaussian Processes for Machine Learning, MIT Press:
+//! Alg. 2.1; §2.7 eqs. 2.41–2.45 (explicit basis functions); §5.4.1 eq. 5.9 (gradient);
+//! §5.4.2 eqs. 5.10–5.12 (leave-one-out). Harville, D. A. (1974), Bayesian inference
+//! for variance components using only error contrasts, Biometrika 61(2), 383–385 (the
+//! restricted likelihood the basis-function form reduces to).
+
+use super::kernel::Kernel;
+use super::SurrogateError;
+use ndarray::{Array1, Array2, ArrayView1, ArrayView2};
+use ndarray_linalg::{CholeskyFactorized, FactorizeC, InverseC, UPLO};
+
+/// Trend basis h(x).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Trend {
+    /// No trend: a zero-mean GP.
+    Zero,
+    /// h(x) = 1.
+    Constant,
+    /// h(x) = (1, x_1, …, x_d).
+    Linear,
+}
+
+impl Trend {
+    fn width(self, d: usize) -> usize {
+        match self {
+            Trend::Zero => 0,
+            Trend::Constant => 1,
+            Trend::Linear => 1 + d,
+        }
+    }
+
+    fn basis_row(self, x: ArrayView1<f64>) -> Array1<f64> {
+        match self {
+            Trend::Zero => Array1::zeros(0),
+            Trend::Constant => Array1::ones(1),
+            Trend::Linear => {
+                let mut h = Array1::ones(1 + x.len());
+                for (i, v) in x.iter().enumerate() {
+                    h[i + 1] = *v;
+                }
+                h
+            }
+        }
+    }
+
+    /// Name used in records.
+    pub fn name(self) -> &'static str {
+        match self {
+            Trend::Zero => "zero",
+            Trend::Constant => "constant",
+            Trend::Linear => "linear",
+        }
+    }
+}
+
+/// Hyperparameters on the log scale: θ = (ln σ², ln ℓ_1 … ln ℓ_d, ln g), g the nugget
+/// variance added to the diagonal.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Hyper {
+    pub ln_signal_var: f64,
+    pub ln_length_scales: Vec<f64>,
+    pub ln_nugget: f64,
+}
+
+impl Hyper {
+    /// As one vector (ln σ², ln ℓ…, ln g).
+    pub fn to_vec(&self) -> Vec<f64> {
+        let mut v = vec![self.ln_signal_var];
+        v.extend(&self.ln_length_scales);
+        v.push(self.ln_nugget);
+        v
+    }
+
+    /// From one vector (ln σ², ln ℓ…, ln g).
+    pub fn from_slice(v: &[f64]) -> Self {
+        Self {
+            ln_signal_var: v[0],
+            ln_length_scales: v[1..v.len() - 1].to_vec(),
+            ln_nugget: v[v.len() - 1],
+        }
+    }
+}
+
+/// A GP conditioned on training data at fixed hyperparameters.
+#[derive(Debug, Clone)]
+pub struct Gp {
+    pub kernel: Kernel,
+    pub trend: Trend,
+    pub hyper: Hyper,
+    x: Array2<f64>,
+    k_inv: Array2<f64>,
+    k_inv_h: Array2<f64>,
+    a_inv: Array2<f64>,
+    beta: Array1<f64>,
+    alpha: Array1<f64>,
+    p_diag: Array1<f64>,
+    /// ln p(y | X, θ) (restricted form when a trend is integrated out).
+    pub ln_marginal_likelihood: f64,
+    /// Extra diagonal jitter that was needed to factor K (0 when none).
+    pub jitter: f64,
+}
+
+/// Largest jitter tried before giving up on a factorisation.
+pub const MAX_JITTER: f64 = 1e-4;
+
+fn covariance(kernel: Kernel, h: &Hyper, a: ArrayView2<f64>, b: ArrayView2<f64>) -> Array2<f64> {
+    let s2 = h.ln_signal_var.exp();
+    let inv_l: Vec<f64> = h.ln_length_scales.iter().map(|l| (-l).exp()).collect();
+    Array2::from_shape_fn((a.nrows(), b.nrows()), |(i, j)| {
+        let mut r2 = 0.0;
+        for (d, il) in inv_l.iter().enumerate() {
+            let t = (a[[i, d]] - b[[j, d]]) * il;
+            r2 += t * t;
+        }
+        s2 * kernel.corr(r2.sqrt())
+    })
+}
+
+impl Gp {
+    /// Condition on training inputs `x` (n × d) and outputs `y` (n).
+    ///
+    /// # Formula
+    /// K = σ² P(X, X) + g I; A = Hᵀ K⁻¹ H; β̂ = A⁻¹ Hᵀ K⁻¹ y; α = K⁻¹ (y − H β̂);
+    /// ln p = −½ yᵀα − ½ ln|K| − ½ ln|A| − (n − m)/2 ln 2π (R&W eq. 2.45 with m basis
+    /// functions; with no trend it is eq. 2.30).
+    ///
+    /// # Errors
+    /// [`SurrogateError::NotPositiveDefinite`] when K cannot be factored even with
+    /// [`MAX_JITTER`] added to its diagonal.
+    pub fn fit(x: ArrayView2<f64>, y: ArrayView1<f64>, kernel: Kernel, trend: Trend, hyper: Hyper) -> Result<Self, SurrogateError> {
+        let n = x.nrows();
+        let d = x.ncols();
+        let m = trend.width(d);
+        let mut k = covariance(kernel, &hyper, x, x);
+        let g = hyper.ln_nugget.exp();
+        for i in 0..n {
+            k[[i, i]] += g;
+        }
+        let mut jitter = 0.0;
+        let factor = loop {
+            match k.factorizec(UPLO::Lower) {
+                Ok(f) => break f,
+                Err(_) => {
+                    let next = if jitter == 0.0 { 1e-10 * (hyper.ln_signal_var.exp()) } else { jitter * 10.0 };
+                    if next > MAX_JITTER * hyper.ln_signal_var.exp().max(1e-300) {
+                        return Err(SurrogateError::NotPositiveDefinite { n, jitter: next });
+                    }
+                    for i in 0..n {
+                        k[[i, i]] += next - jitter;
+                    }
+                    jitter = next;
+                }
+            }
+        };
+        let ln_det_k = ln_det(&factor);
+        let k_inv = factor.invc().map_err(|_| SurrogateError::NotPositiveDefinite { n, jitter })?;
+        let h = Array2::from_shape_fn((n, m), |(i, j)| trend.basis_row(x.row(i))[j]);
+        let k_inv_y = k_inv.dot(&y);
+        let k_inv_h = k_inv.dot(&h);
+        let (a_inv, beta, ln_det_a) = if m > 0 {
+            let a = h.t().dot(&k_inv_h);
+            let fa = a.factorizec(UPLO::Lower).map_err(|_| SurrogateError::TrendNotIdentifiable { n, m })?;
+            let a_inv = fa.invc().map_err(|_| SurrogateError::TrendNotIdentifiable { n, m })?;
+            let beta = a_inv.dot(&h.t().dot(&k_inv_y));
+            (a_inv, beta, ln_det(&fa))
+        } else {
+            (Array2::zeros((0, 0)), Array1::zeros(0), 0.0)
+        };
+        let alpha = &k_inv_y - &k_inv_h.dot(&beta);
+        // diag of P = K⁻¹ − K⁻¹H A⁻¹ HᵀK⁻¹.
+        let p_diag = Array1::from_shape_fn(n, |i| {
+            let r = k_inv_h.row(i);
+            k_inv[[i, i]] - r.dot(&a_inv.dot(&r))
+        });
+        let lml = -0.5 * y.dot(&alpha) - 0.5 * ln_det_k - 0.5 * ln_det_a - 0.5 * (n - m) as f64 * (2.0 * std::f64::consts::PI).ln();
+        Ok(Self {
+            kernel,
+            trend,
+            hyper,
+            x: x.to_owned(),
+            k_inv,
+            k_inv_h,
+            a_inv,
+            beta,
+            alpha,
+            p_diag,
+            ln_marginal_likelihood: lml,
+            jitter,
+        })
+    }
+
+    /// Gradient of [`Gp::ln_marginal_likelihood`] with respect to (ln σ², ln ℓ…, ln g).
+    ///
+    /// # Formula
+    /// ∂ ln p / ∂θ_j = ½ tr((α αᵀ − P) ∂K/∂θ_j), P = K⁻¹ − K⁻¹H A⁻¹ HᵀK⁻¹ (R&W eq. 5.9,
+    /// with P in place of K⁻¹ when a trend is integrated out).
+    pub fn gradient(&self) -> Vec<f64> {
+        let n = self.x.nrows();
+        let d = self.x.ncols();
+        let s2 = self.hyper.ln_signal_var.exp();
+        let g = self.hyper.ln_nugget.exp();
+        let p = &self.k_inv - &self.k_inv_h.dot(&self.a_inv).dot(&self.k_inv_h.t());
+        let inv_l: Vec<f64> = self.hyper.ln_length_scales.iter().map(|l| (-l).exp()).collect();
+        let mut grad = vec![0.0; d + 2];
+        let mut t = vec![0.0; d];
+        for a in 0..n {
+            for b in 0..n {
+                let w = self.alpha[a] * self.alpha[b] - p[[a, b]];
+                let mut r2 = 0.0;
+                for dd in 0..d {
+                    t[dd] = (self.x[[a, dd]] - self.x[[b, dd]]) * inv_l[dd];
+                    r2 += t[dd] * t[dd];
+                }
+                let r = r2.sqrt();
+                grad[0] += w * s2 * self.kernel.corr(r);
+                let gr = s2 * self.kernel.neg_dcorr_over_r(r);
+                for dd in 0..d {
+                    grad[1 + dd] += w * gr * t[dd] * t[dd];
+                }
+                if a == b {
+                    grad[d + 1] += w * g;
+                }
+            }
+        }
+        grad.iter().map(|v| 0.5 * v).collect()
+    }
+
+    /// Predictive mean and variance of the latent function at `xs` (rows).
+    ///
+    /// # Formula
+    /// m(x*) = h*ᵀβ̂ + k*ᵀα; v(x*) = k** − k*ᵀK⁻¹k* + Rᵀ A⁻¹ R, R = h* − HᵀK⁻¹k*
+    /// (R&W eqs. 2.25–2.26 and 2.42).
+    pub fn predict(&self, xs: ArrayView2<f64>) -> (Array1<f64>, Array1<f64>) {
+        let ks = covariance(self.kernel, &self.hyper, xs, self.x.view());
+        let s2 = self.hyper.ln_signal_var.exp();
+        let n_star = xs.nrows();
+        let mut mean = Array1::zeros(n_star);
+        let mut var = Array1::zeros(n_star);
+        for i in 0..n_star {
+            let k = ks.row(i);
+            let h = self.trend.basis_row(xs.row(i));
+            let kinv_k = self.k_inv.dot(&k);
+            mean[i] = h.dot(&self.beta) + k.dot(&self.alpha);
+            let mut v = s2 - k.dot(&kinv_k);
+            if !self.beta.is_empty() {
+                let r = &h - &self.k_inv_h.t().dot(&k);
+                v += r.dot(&self.a_inv.dot(&r));
+            }
+            var[i] = v.max(0.0);
+        }
+        (mean, var)
+    }
+
+    /// Leave-one-out predictive means and variances of the training outputs `y`.
+    ///
+    /// # Formula
+    /// μ₋ᵢ = yᵢ − αᵢ / Pᵢᵢ, σ²₋ᵢ = 1 / Pᵢᵢ (R&W eqs. 5.12, with the trend re-estimated
+    /// without point i through P; Dubrule 1983).
+    pub fn leave_one_out(&self, y: ArrayView1<f64>) -> (Array1<f64>, Array1<f64>) {
+        let mean = Array1::from_shape_fn(y.len(), |i| y[i] - self.alpha[i] / self.p_diag[i]);
+        let var = self.p_diag.mapv(|p| 1.0 / p);
+        (mean, var)
+    }
+}
+
+fn ln_det(f: &CholeskyFactorized<ndarray::OwnedRepr<f64>>) -> f64 {
+    let l = &f.factor;
+    2.0 * (0..l.nrows()).map(|i| l[[i, i]].ln()).sum::<f64>()
+}
