@@ -12,3 +12,4 @@ pub mod rng;
 pub mod progress;
 pub mod runs;
 pub mod surrogate;
+pub mod calibrate;

@@ -1,0 +1,207 @@
+//! Convergence diagnostics: rank-normalised split-R̂ and bulk/tail effective sample size.
+//!
+//! # References
+//! Vehtari, A., Gelman, A., Simpson, D., Carpenter, B. & Bürkner, P.-C. (2021).
+//! Rank-normalization, folding, and localization: an improved R̂ for assessing
+//! convergence of MCMC. Bayesian Analysis 16(2), 667–718. Geyer, C. J. (1992),
+//! Practical Markov chain Monte Carlo, Statistical Science 7(4), 473–483 (initial
+//! monotone sequence estimator).
+
+use serde::{Deserialize, Serialize};
+use statrs::distribution::{ContinuousCDF, Normal};
+
+/// Diagnostics of one parameter.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct Diagnostics {
+    pub rhat: f64,
+    pub ess_bulk: f64,
+    pub ess_tail: f64,
+}
+
+impl Diagnostics {
+    /// Compute all three for `chains` (one vector of draws per chain).
+    pub fn of(chains: &[Vec<f64>]) -> Self {
+        Self { rhat: rhat(chains), ess_bulk: ess_bulk(chains), ess_tail: ess_tail(chains) }
+    }
+}
+
+/// Split every chain in two halves (the middle draw of an odd chain is dropped).
+fn split(chains: &[Vec<f64>]) -> Vec<Vec<f64>> {
+    let mut out = Vec::with_capacity(2 * chains.len());
+    for c in chains {
+        let h = c.len() / 2;
+        out.push(c[..h].to_vec());
+        out.push(c[c.len() - h..].to_vec());
+    }
+    out
+}
+
+/// Replace every draw by Φ⁻¹((r − 3/8)/(S + 1/4)), r its pooled rank (ties averaged).
+fn rank_normalize(chains: &[Vec<f64>]) -> Vec<Vec<f64>> {
+    let mut all: Vec<(f64, usize, usize)> = Vec::new();
+    for (c, ch) in chains.iter().enumerate() {
+        for (i, v) in ch.iter().enumerate() {
+            all.push((*v, c, i));
+        }
+    }
+    all.sort_by(|a, b| a.0.total_cmp(&b.0));
+    let s = all.len() as f64;
+    let normal = Normal::new(0.0, 1.0).expect("standard normal");
+    let mut out: Vec<Vec<f64>> = chains.iter().map(|c| vec![0.0; c.len()]).collect();
+    let mut k = 0;
+    while k < all.len() {
+        let mut j = k;
+        while j + 1 < all.len() && all[j + 1].0 == all[k].0 {
+            j += 1;
+        }
+        // Average rank of the tie group, ranks 1-based.
+        let r = (k + j) as f64 / 2.0 + 1.0;
+        let z = normal.inverse_cdf((r - 0.375) / (s + 0.25));
+        for item in &all[k..=j] {
+            out[item.1][item.2] = z;
+        }
+        k = j + 1;
+    }
+    out
+}
+
+fn mean(v: &[f64]) -> f64 {
+    v.iter().sum::<f64>() / v.len() as f64
+}
+
+fn var(v: &[f64]) -> f64 {
+    let m = mean(v);
+    v.iter().map(|x| (x - m).powi(2)).sum::<f64>() / (v.len() as f64 - 1.0)
+}
+
+/// Classic R̂ of already split chains.
+fn rhat_basic(chains: &[Vec<f64>]) -> f64 {
+    let n = chains[0].len() as f64;
+    let means: Vec<f64> = chains.iter().map(|c| mean(c)).collect();
+    let w = mean(&chains.iter().map(|c| var(c)).collect::<Vec<_>>());
+    let b = n * var(&means);
+    let var_plus = (n - 1.0) / n * w + b / n;
+    (var_plus / w).sqrt()
+}
+
+fn median(chains: &[Vec<f64>]) -> f64 {
+    let mut all: Vec<f64> = chains.iter().flatten().copied().collect();
+    all.sort_by(f64::total_cmp);
+    let n = all.len();
+    if n % 2 == 1 {
+        all[n / 2]
+    } else {
+        0.5 * (all[n / 2 - 1] + all[n / 2])
+    }
+}
+
+/// Rank-normalised split-R̂: the larger of the bulk R̂ and the R̂ of the folded draws
+/// |θ − median|. Close to 1 at convergence; above 1.01 suggests running longer.
+pub fn rhat(chains: &[Vec<f64>]) -> f64 {
+    let sp = split(chains);
+    if sp.is_empty() || sp[0].len() < 2 {
+        return f64::NAN;
+    }
+    let bulk = rhat_basic(&rank_normalize(&sp));
+    let med = median(&sp);
+    let folded: Vec<Vec<f64>> = sp.iter().map(|c| c.iter().map(|v| (v - med).abs()).collect()).collect();
+    let tail = rhat_basic(&rank_normalize(&folded));
+    bulk.max(tail)
+}
+
+/// Effective sample size of (already split) chains, by the multi-chain autocorrelation
+/// and Geyer's initial monotone sequence.
+fn ess_raw(chains: &[Vec<f64>]) -> f64 {
+    let m = chains.len();
+    let n = chains[0].len();
+    if n < 4 {
+        return f64::NAN;
+    }
+    let nf = n as f64;
+    let means: Vec<f64> = chains.iter().map(|c| mean(c)).collect();
+    // Autocovariance of chain c at lag t (biased, divided by n).
+    let acov = |c: usize, t: usize| -> f64 {
+        let ch = &chains[c];
+        let mu = means[c];
+        (0..n - t).map(|i| (ch[i] - mu) * (ch[i + t] - mu)).sum::<f64>() / nf
+    };
+    let acov0: Vec<f64> = (0..m).map(|c| acov(c, 0)).collect();
+    let w = mean(&acov0.iter().map(|a| a * nf / (nf - 1.0)).collect::<Vec<_>>());
+    let b_over_n = if m > 1 { var(&means) } else { 0.0 };
+    let var_plus = w * (nf - 1.0) / nf + b_over_n;
+    if !(var_plus > 0.0) {
+        return f64::NAN;
+    }
+    let mean_acov = |t: usize| -> f64 { (0..m).map(|c| acov(c, t)).sum::<f64>() / m as f64 };
+    let rho_at = |t: usize| 1.0 - (w - mean_acov(t)) / var_plus;
+    // Geyer's initial positive sequence, then made monotone (Vehtari et al. 2021, eq. 10;
+    // the same steps as arviz's `_ess`).
+    let mut rho = vec![0.0; n];
+    rho[0] = 1.0;
+    let mut rho_even = 1.0;
+    let mut rho_odd = rho_at(1);
+    rho[1] = rho_odd;
+    let mut t: usize = 1;
+    while t + 3 < n && rho_even + rho_odd > 0.0 {
+        rho_even = rho_at(t + 1);
+        rho_odd = rho_at(t + 2);
+        if rho_even + rho_odd >= 0.0 {
+            rho[t + 1] = rho_even;
+            rho[t + 2] = rho_odd;
+        }
+        t += 2;
+    }
+    let max_t = t as isize - 2;
+    if rho_even > 0.0 {
+        rho[(max_t + 1) as usize] = rho_even;
+    }
+    let mut k: isize = 1;
+    while k <= max_t - 2 {
+        let ku = k as usize;
+        if rho[ku + 1] + rho[ku + 2] > rho[ku - 1] + rho[ku] {
+            rho[ku + 1] = (rho[ku - 1] + rho[ku]) / 2.0;
+            rho[ku + 2] = rho[ku + 1];
+        }
+        k += 2;
+    }
+    let head: f64 = if max_t >= 0 { rho[..=(max_t as usize)].iter().sum() } else { 0.0 };
+    let total = (m * n) as f64;
+    let tau = (-1.0 + 2.0 * head + rho[(max_t + 1) as usize]).max(1.0 / total.log10());
+    total / tau
+}
+
+/// Bulk ESS: ESS of the rank-normalised split chains.
+pub fn ess_bulk(chains: &[Vec<f64>]) -> f64 {
+    let sp = split(chains);
+    if sp.is_empty() {
+        return f64::NAN;
+    }
+    ess_raw(&rank_normalize(&sp))
+}
+
+/// Tail ESS: the smaller ESS of the indicators θ ≤ q05 and θ ≤ q95 (split chains).
+pub fn ess_tail(chains: &[Vec<f64>]) -> f64 {
+    let sp = split(chains);
+    if sp.is_empty() {
+        return f64::NAN;
+    }
+    // Quantiles of all draws (before splitting), as in Vehtari et al. (2021) §4.3.
+    let mut all: Vec<f64> = chains.iter().flatten().copied().collect();
+    all.sort_by(f64::total_cmp);
+    let q = |p: f64| quantile_sorted(&all, p);
+    let (q05, q95) = (q(0.05), q(0.95));
+    let ind = |thr: f64| -> Vec<Vec<f64>> { sp.iter().map(|c| c.iter().map(|v| if *v <= thr { 1.0 } else { 0.0 }).collect()).collect() };
+    ess_raw(&ind(q05)).min(ess_raw(&ind(q95)))
+}
+
+/// Quantile of sorted values by linear interpolation (type 7, as numpy's default).
+pub fn quantile_sorted(sorted: &[f64], p: f64) -> f64 {
+    let n = sorted.len();
+    if n == 1 {
+        return sorted[0];
+    }
+    let h = (n - 1) as f64 * p;
+    let lo = h.floor() as usize;
+    let hi = (lo + 1).min(n - 1);
+    sorted[lo] + (h - lo as f64) * (sorted[hi] - sorted[lo])
+}

@@ -1,0 +1,20 @@
+//! Bayesian calibration: the posterior of the parameters given the field data.
+//!
+//! Input: the study's parameters (priors, ranges), each experiment's field data and
+//! noise, and an [`Emulator`] per experiment (the fitted surrogate, or an exact model in
+//! tests). Output: MCMC [`Chain`]s, their [`Diagnostics`] and a [`PosteriorSummary`].
+//! Must not: open files, print, or create its own RNG (streams come from one seed).
+
+mod diagnostics;
+mod likelihood;
+mod posterior;
+mod prior;
+mod sampler;
+mod summary;
+
+pub use diagnostics::{ess_bulk, ess_tail, rhat, Diagnostics};
+pub use likelihood::{Emulator, ExperimentLikelihood};
+pub use posterior::LogPosterior;
+pub use prior::{ln_prior, Transform};
+pub use sampler::{sample, Chain, SamplerParams, Termination};
+pub use summary::{summarize, ParameterSummary, PosteriorBody, PosteriorSummary};
