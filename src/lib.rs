@@ -3,7 +3,7 @@
 //! A pipeline of stages, each a module: [`study`] → [`design`] → [`runs`] →
 //! [`surrogate`] → [`calibrate`], with [`record`] for the YAML records they leave.
 //! The numerical stages (design, surrogate, calibrate) open no files and print nothing.
-#![forbid(unsafe_code)]
+#![deny(unsafe_code)]
 
 pub mod study;
 pub mod design;
@@ -12,4 +12,7 @@ pub mod rng;
 pub mod progress;
 pub mod runs;
 pub mod surrogate;
+mod blas;
 pub mod calibrate;
+pub use blas::init as init_blas;
+pub mod campaign;

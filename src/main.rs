@@ -1,1 +1,284 @@
-fn main(){}
+//! The `assay` command: parse arguments, call the stages, show progress, set the exit code.
+#![forbid(unsafe_code)]
+
+mod args;
+mod plan;
+
+use anyhow::{Context, Result};
+use args::{Cli, Command};
+use assay::calibrate::{Diagnostics, ParameterSummary, PosteriorBody};
+use assay::campaign::{self, Campaign, DesignOutcome, InputError};
+use assay::progress::{Observer, Silent};
+use assay::record::{read_record, Record};
+use assay::study::{self, Study, StudyErrors};
+use clap::Parser;
+use indicatif::{ProgressBar, ProgressStyle};
+use std::io::Write;
+use std::path::Path;
+use std::process::ExitCode;
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::{Arc, OnceLock};
+
+/// Set by Ctrl-C: stages stop at the next safe point and keep what they finished.
+static STOP: OnceLock<Arc<AtomicBool>> = OnceLock::new();
+
+fn stop_flag() -> &'static AtomicBool {
+    STOP.get_or_init(|| Arc::new(AtomicBool::new(false)))
+}
+
+/// Write a line to stdout; a closed pipe ends the program quietly.
+macro_rules! out {
+    ($($arg:tt)*) => {{
+        let mut o = std::io::stdout().lock();
+        if let Err(e) = writeln!(o, $($arg)*) {
+            if e.kind() == std::io::ErrorKind::BrokenPipe {
+                std::process::exit(0);
+            }
+        }
+    }};
+}
+
+/// Progress on stderr with indicatif (hidden when stderr is not a terminal).
+struct Bar {
+    bar: ProgressBar,
+}
+
+impl Bar {
+    fn new() -> Self {
+        Self { bar: ProgressBar::hidden() }
+    }
+}
+
+impl Observer for Bar {
+    fn start(&self, task: &str, total: u64) {
+        self.bar.set_draw_target(indicatif::ProgressDrawTarget::stderr());
+        self.bar.set_length(total);
+        self.bar.set_position(0);
+        self.bar.set_style(
+            ProgressStyle::with_template("{prefix:>10} [{bar:30}] {pos}/{len} {msg} ({elapsed}, eta {eta})")
+                .expect("valid template")
+                .progress_chars("=> "),
+        );
+        self.bar.set_prefix(task.to_string());
+        self.bar.reset_elapsed();
+    }
+    fn advance(&self, n: u64, message: &str) {
+        self.bar.inc(n);
+        if !message.is_empty() {
+            self.bar.set_message(message.to_string());
+        }
+    }
+    fn note(&self, message: &str) {
+        self.bar.suspend(|| eprintln!("  {message}"));
+    }
+    fn finish(&self) {
+        self.bar.finish_and_clear();
+    }
+}
+
+fn observer(quiet: bool) -> Box<dyn Observer> {
+    if quiet {
+        Box::new(Silent)
+    } else {
+        Box::new(Bar::new())
+    }
+}
+
+/// Significant-figure formatting for tables.
+fn sig(v: f64, digits: usize) -> String {
+    if !v.is_finite() {
+        return format!("{v}");
+    }
+    if v == 0.0 {
+        return "0".into();
+    }
+    let mag = v.abs().log10().floor() as i32;
+    if !(-4..=6).contains(&mag) {
+        return format!("{:.*e}", digits.saturating_sub(1), v);
+    }
+    let decimals = (digits as i32 - 1 - mag).max(0) as usize;
+    format!("{v:.decimals$}")
+}
+
+fn load_study(path: &Path) -> Result<Study> {
+    Ok(study::load(path)?)
+}
+
+fn print_summary(s: &Study, c: &Campaign) {
+    out!("study {} ({})", s.name, s.file.display());
+    out!("  campaign folder: {}", c.dir.display());
+    out!("  parameters:");
+    for p in &s.parameters {
+        let unit = p.unit.as_deref().map(|u| format!(" {u}")).unwrap_or_default();
+        out!("    {:<12} [{}, {}]{unit}  prior {:?}", p.name, p.lo, p.hi, p.prior);
+    }
+    out!("  simulator: {}", s.simulator.command.join(" "));
+    out!("  experiments:");
+    for e in &s.experiments {
+        let st = e.data.stations();
+        out!("    {:<12} {} data rows at {} output locations, data {}", e.name, e.data.rows.len(), st.len(), e.data_path.display());
+    }
+    out!("  design: {:?}, {} points, seed {}", s.design.method, s.design.points, s.design.seed);
+    out!(
+        "  calibration: {} chains × ({} warm-up + {} draws), seed {}",
+        s.calibration.chains, s.calibration.warmup, s.calibration.draws, s.calibration.seed
+    );
+}
+
+fn print_status(c: &Campaign) -> Result<()> {
+    let (n_points, counts, _) = campaign::status(c)?;
+    out!("{} design points; runs by state:", n_points);
+    out!("  {:<16} {:>8} {:>8} {:>8} {:>8}", "experiment", "pending", "running", "done", "failed");
+    for (e, k) in counts {
+        out!("  {:<16} {:>8} {:>8} {:>8} {:>8}", e, k.pending, k.running, k.done, k.failed);
+    }
+    Ok(())
+}
+
+fn print_posterior(c: &Campaign) -> Result<()> {
+    let rec: Record<PosteriorBody> = read_record(&c.path(campaign::POSTERIOR_FILE))?;
+    let b = &rec.body;
+    out!("posterior ({} draws, {} chains) — {}", b.n_draws, b.chains.len(), c.path(campaign::POSTERIOR_FILE).display());
+    out!(
+        "  {:<10} {:<9} {:>11} {:>10} {:>11} {:>11} {:>11} {:>11} {:>7} {:>8} {:>8}",
+        "parameter", "unit", "mean", "sd", "median", "q2.5%", "q97.5%", "MAP", "R-hat", "ESS bulk", "ESS tail"
+    );
+    for p in &c.study.parameters {
+        let (Some(s), Some(d)): (Option<&ParameterSummary>, Option<&Diagnostics>) = (b.parameters.get(&p.name), b.diagnostics.get(&p.name)) else {
+            continue;
+        };
+        out!(
+            "  {:<10} {:<9} {:>11} {:>10} {:>11} {:>11} {:>11} {:>11} {:>7.3} {:>8.0} {:>8.0}",
+            p.name,
+            p.unit.as_deref().unwrap_or("-"),
+            sig(s.mean, 5),
+            sig(s.sd, 3),
+            sig(s.median, 5),
+            sig(s.q025, 5),
+            sig(s.q975, 5),
+            sig(s.map, 5),
+            d.rhat,
+            d.ess_bulk,
+            d.ess_tail
+        );
+    }
+    for w in &b.warnings {
+        out!("  warning: {w}");
+    }
+    out!("  caution: {}", b.caution);
+    Ok(())
+}
+
+fn print_fit(s: &assay::surrogate::FittedSurrogate) {
+    out!("surrogate ({} kernel, {} mean), leave-one-out validation:", s.kernel.name(), s.trend.name());
+    out!("  {:<16} {:>6} {:>12} {:>8} {:>11}", "experiment", "runs", "rmse", "q2", "coverage95");
+    for (e, n, v) in campaign::validation_table(s) {
+        out!("  {:<16} {:>6} {:>12} {:>8.4} {:>11.3}", e, n, sig(v.rmse, 3), v.q2, v.coverage95);
+    }
+}
+
+fn report_runs(s: &assay::runs::RunSummary) {
+    out!(
+        "runs: {} done now, {} failed, {} already done{}",
+        s.done,
+        s.failed,
+        s.skipped,
+        if s.interrupted > 0 { format!(", {} interrupted (pending)", s.interrupted) } else { String::new() }
+    );
+}
+
+/// Run the command; `Ok(true)` when some runs failed (exit code 3).
+fn execute(cli: &Cli) -> Result<bool> {
+    let command_line: Vec<String> = std::env::args().collect();
+    let obs = observer(cli.quiet);
+    let stop = stop_flag();
+    let (study_path, _) = match &cli.command {
+        Command::Validate(a) | Command::Status(a) | Command::Fit(a) | Command::Calibrate(a) => (&a.study, ()),
+        Command::Design(a) => (&a.study.study, ()),
+        Command::Run(a) | Command::All(a) => (&a.study.study, ()),
+    };
+    let study = load_study(study_path)?;
+    let c = Campaign::new(study, &cli.runs, command_line);
+    let mut some_failed = false;
+    match &cli.command {
+        Command::Validate(_) => {
+            print_summary(&c.study, &c);
+            out!("ok: the study is valid");
+        }
+        Command::Design(a) => {
+            let (d, how) = campaign::write_design(&c, a.force)?;
+            let verb = if how == DesignOutcome::Kept { "kept (same settings)" } else { "written" };
+            out!("design: {} points {verb} — {}", d.points.len(), c.path(campaign::DESIGN_FILE).display());
+        }
+        Command::Run(a) => {
+            let s = campaign::run_stage(&c, plan::jobs(a, &c.study), stop, obs.as_ref())?;
+            report_runs(&s);
+            some_failed = s.failed > 0;
+        }
+        Command::Status(_) => print_status(&c)?,
+        Command::Fit(_) => {
+            let s = campaign::fit_stage(&c)?;
+            print_fit(&s);
+        }
+        Command::Calibrate(_) => {
+            campaign::calibrate_stage(&c, stop, obs.as_ref())?;
+            print_posterior(&c)?;
+        }
+        Command::All(a) => {
+            let (d, how) = campaign::write_design(&c, false)?;
+            let verb = if how == DesignOutcome::Kept { "kept" } else { "written" };
+            out!("design: {} points {verb}", d.points.len());
+            let s = campaign::run_stage(&c, plan::jobs(a, &c.study), stop, obs.as_ref())?;
+            report_runs(&s);
+            some_failed = s.failed > 0;
+            if stop.load(Ordering::SeqCst) {
+                anyhow::bail!("interrupted; run the same command again to continue");
+            }
+            if campaign::is_stale(&c.path(campaign::SURROGATE_FILE), &campaign::fit_inputs(&c)?) {
+                let s = campaign::fit_stage(&c)?;
+                print_fit(&s);
+            } else {
+                out!("surrogate: up to date");
+            }
+            if campaign::is_stale(&c.path(campaign::POSTERIOR_FILE), &campaign::calibrate_inputs(&c)) {
+                campaign::calibrate_stage(&c, stop, obs.as_ref())?;
+            } else {
+                out!("posterior: up to date");
+            }
+            print_posterior(&c)?;
+            out!("records: {}", c.dir.display());
+        }
+    }
+    Ok(some_failed)
+}
+
+fn main() -> ExitCode {
+    let cli = Cli::parse();
+    let flag = STOP.get_or_init(|| Arc::new(AtomicBool::new(false))).clone();
+    let _ = ctrlc::set_handler(move || {
+        if flag.swap(true, Ordering::SeqCst) {
+            // Second Ctrl-C: leave at once.
+            std::process::exit(130);
+        }
+        eprintln!("\ninterrupted: finishing cleanly (press Ctrl-C again to quit at once)");
+    });
+    match execute(&cli).context("assay failed") {
+        Ok(false) => ExitCode::SUCCESS,
+        Ok(true) => {
+            eprintln!("some runs failed: `assay status` counts them; each run.yaml says why");
+            ExitCode::from(3)
+        }
+        Err(err) => {
+            let bad_input = err.chain().any(|e| e.is::<StudyErrors>() || e.is::<InputError>());
+            if let Some(se) = err.chain().find_map(|e| e.downcast_ref::<StudyErrors>()) {
+                for e in &se.0 {
+                    eprintln!("error: {e}");
+                }
+            } else {
+                let chain: Vec<String> = err.chain().skip(1).map(|e| e.to_string()).collect();
+                eprintln!("error: {}", chain.join(": "));
+            }
+            ExitCode::from(if bad_input { 2 } else { 1 })
+        }
+    }
+}

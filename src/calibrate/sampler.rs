@@ -2,7 +2,7 @@
 //! random stream, chains in parallel.
 //!
 //! Warm-up tunes the proposal: its covariance is the sample covariance of the warm-up
-//! draws at the end of doubling windows (100, 200, 400 … iterations), its scale follows a
+//! draws at the end of doubling windows (50, 100, 200 … iterations), its scale follows a
 //! Robbins–Monro rule towards an acceptance rate of 0.234. The proposal is frozen after
 //! warm-up, so the kept draws come from a fixed Metropolis kernel.
 //!
@@ -61,7 +61,7 @@ pub struct Chain {
 /// Target acceptance rate of the scale adaptation.
 const TARGET_ACCEPT: f64 = 0.234;
 /// First adaptation window; later windows double.
-const FIRST_WINDOW: usize = 100;
+const FIRST_WINDOW: usize = 50;
 /// Added to the tuned covariance so it stays positive definite.
 const COV_REGULARISER: f64 = 1e-10;
 
@@ -115,6 +115,8 @@ fn run_chain(post: &LogPosterior<'_>, params: &SamplerParams, index: usize, stop
     let mut ln_scale = (2.38 / (d as f64).sqrt()).ln();
     let mut window: Vec<Vec<f64>> = Vec::new();
     let mut window_len = FIRST_WINDOW;
+    let mut window_start = 0usize;
+    let mut window_accepted = 0usize;
     let mut next_window_end = FIRST_WINDOW;
     let mut theta = Vec::with_capacity(params.draws);
     let mut ln_post = Vec::with_capacity(params.draws);
@@ -142,15 +144,20 @@ fn run_chain(post: &LogPosterior<'_>, params: &SamplerParams, index: usize, stop
             lp = lp_new;
         }
         if t < params.warmup {
-            // Robbins–Monro on the log scale, step size decaying as t^-0.6.
-            let gamma = 1.0 / ((t + 1) as f64).powf(0.6);
+            // Robbins–Monro on the log scale; the step size restarts with each window so
+            // a badly scaled start is corrected quickly.
+            let gamma = 1.0 / ((t + 1 - window_start) as f64).powf(0.6);
             ln_scale += gamma * (accept_prob - TARGET_ACCEPT);
+            if accept {
+                window_accepted += 1;
+            }
             window.push(z.clone());
             if t + 1 == next_window_end && t + 1 < params.warmup {
                 // Covariance of the latter half of the window (the early part may still
-                // be travelling from the starting point).
+                // be travelling from the starting point), if the chain moved enough to
+                // estimate it.
                 let half = &window[window.len() / 2..];
-                if half.len() > 2 * d {
+                if window_accepted > 4 * d + 4 {
                     let mut c = covariance(half, d);
                     for a in 0..d {
                         c[[a, a]] += COV_REGULARISER;
@@ -161,6 +168,8 @@ fn run_chain(post: &LogPosterior<'_>, params: &SamplerParams, index: usize, stop
                     }
                 }
                 window.clear();
+                window_accepted = 0;
+                window_start = t + 1;
                 window_len *= 2;
                 next_window_end = t + 1 + window_len;
             }
@@ -184,6 +193,7 @@ fn run_chain(post: &LogPosterior<'_>, params: &SamplerParams, index: usize, stop
 /// Run `params.chains` chains in parallel. Chain i uses random stream i of `params.seed`,
 /// so the draws are the same whatever the number of threads.
 pub fn sample(post: &LogPosterior<'_>, params: &SamplerParams, stop: &AtomicBool, observer: &dyn Observer) -> Vec<Chain> {
+    crate::init_blas();
     observer.start("MCMC", (params.chains * (params.warmup + params.draws)) as u64);
     let chains = (0..params.chains).into_par_iter().map(|i| run_chain(post, params, i, stop, observer)).collect();
     observer.finish();

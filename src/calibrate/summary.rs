@@ -116,6 +116,8 @@ pub struct PosteriorBody {
     /// Evaluations of the log posterior, all chains, warm-up included.
     pub n_evaluations: u64,
     pub warnings: Vec<String>,
+    /// sha256 of `posterior-samples.csv` written with this record.
+    pub samples_sha256: Option<String>,
     pub caution: String,
 }
 
@@ -144,6 +146,7 @@ impl PosteriorBody {
             n_draws: s.n_draws,
             n_evaluations,
             warnings: s.warnings.clone(),
+            samples_sha256: None,
             caution: CAUTION.into(),
         }
     }

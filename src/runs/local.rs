@@ -13,7 +13,7 @@ use std::collections::BTreeMap;
 use std::os::unix::process::CommandExt;
 use std::path::{Path, PathBuf};
 use std::process::{Command, Stdio};
-use std::sync::atomic::{AtomicUsize, Ordering};
+use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
 use std::sync::Mutex;
 use std::time::{Duration, Instant};
 
@@ -26,6 +26,8 @@ pub struct RunSummary {
     pub done: usize,
     /// Runs that failed now (after their retries).
     pub failed: usize,
+    /// Runs stopped by an interruption (left pending, to run again later).
+    pub interrupted: usize,
 }
 
 /// Names of an experiment's output values: `y@x` for curves, `y` for scalars.
@@ -67,6 +69,7 @@ pub fn run_all(
     campaign: &Path,
     jobs: usize,
     command_line: &[String],
+    stop: &AtomicBool,
     observer: &dyn Observer,
 ) -> Result<RunSummary> {
     let mut todo = Vec::new();
@@ -100,12 +103,16 @@ pub fn run_all(
     std::thread::scope(|s| {
         for _ in 0..workers {
             s.spawn(|| loop {
+                if stop.load(Ordering::SeqCst) {
+                    break;
+                }
                 let i = next.fetch_add(1, Ordering::SeqCst);
                 let Some((p, e, prev)) = todo.get(i) else { break };
-                let r = run_one(study, p, e, prev.clone(), campaign, command_line);
+                let r = run_one(study, p, e, prev.clone(), campaign, command_line, stop);
                 let label = format!("{}/{}", p.id, e.name);
                 match &r {
                     Ok(RunState::Done) => observer.advance(1, &format!("{label} done")),
+                    Ok(RunState::Pending) => observer.note(&format!("{label} interrupted; back to pending")),
                     Ok(_) => {
                         observer.note(&format!("{label} failed (see {})", run_record_path(campaign, &p.id, &e.name).display()));
                         observer.advance(1, &format!("{label} failed"));
@@ -123,7 +130,8 @@ pub fn run_all(
     for r in results.into_inner().expect("results lock") {
         match r? {
             RunState::Done => summary.done += 1,
-            _ => summary.failed += 1,
+            RunState::Pending | RunState::Running => summary.interrupted += 1,
+            RunState::Failed => summary.failed += 1,
         }
     }
     Ok(summary)
@@ -151,6 +159,7 @@ fn run_one(
     previous: Option<RunBody>,
     campaign: &Path,
     command_line: &[String],
+    stop: &AtomicBool,
 ) -> Result<RunState> {
     let dir = run_dir(campaign, &point.id, &e.name);
     std::fs::create_dir_all(&dir).with_context(|| format!("cannot create {}", dir.display()))?;
@@ -209,14 +218,22 @@ fn run_one(
 
         let started = now();
         let t0 = Instant::now();
-        let (exit_code, outcome) = attempt(study, e, &argv, &dir);
+        let (exit_code, outcome) = attempt(study, e, &argv, &dir, stop);
         let elapsed = t0.elapsed().as_secs_f64();
         body.exit_code = exit_code;
         body.elapsed_s = Some(elapsed);
         body.owner_pid = None;
         body.owner_host = None;
         match outcome {
-            Ok((vals, sha)) => {
+            Outcome::Interrupted => {
+                body.state = RunState::Pending;
+                body.attempts -= 1;
+                body.reason = Some("interrupted by the user; will run again".into());
+                body.history.push(Attempt { started_utc: started, elapsed_s: elapsed, exit_code, reason: body.reason.clone() });
+                write_record(&record_path, &Record::new("run", clock.finish(), body.clone()))?;
+                return Ok(RunState::Pending);
+            }
+            Outcome::Done(vals, sha) => {
                 body.state = RunState::Done;
                 body.reason = None;
                 body.values = Some(vals);
@@ -226,7 +243,7 @@ fn run_one(
                 write_record(&record_path, &Record::new("run", clock.finish(), body.clone()))?;
                 return Ok(RunState::Done);
             }
-            Err(reason) => {
+            Outcome::Failed(reason) => {
                 body.state = RunState::Failed;
                 body.reason = Some(reason.clone());
                 body.history.push(Attempt { started_utc: started, elapsed_s: elapsed, exit_code, reason: Some(reason) });
@@ -241,20 +258,29 @@ fn clock_snapshot(command_line: &[String]) -> crate::record::Provenance {
     ProvenanceClock::start(command_line.to_vec()).finish()
 }
 
-/// One attempt: start, wait with timeout, parse. Returns the exit code and either the
-/// output values with the output file's hash or the reason of the failure.
-fn attempt(study: &Study, e: &Experiment, argv: &[String], dir: &Path) -> (Option<i32>, Result<(Vec<f64>, String), String>) {
+/// How one attempt ended.
+enum Outcome {
+    /// Output values matched to the stations, and the output file's sha256.
+    Done(Vec<f64>, String),
+    /// Why it failed.
+    Failed(String),
+    /// Stopped on request; the process group was killed.
+    Interrupted,
+}
+
+/// One attempt: start, wait with timeout (or interruption), parse.
+fn attempt(study: &Study, e: &Experiment, argv: &[String], dir: &Path, stop: &AtomicBool) -> (Option<i32>, Outcome) {
     let sim = &study.simulator;
     let out_path = dir.join(&sim.output.file);
     // A stale output from an earlier attempt must not be mistaken for this one's.
     let _ = std::fs::remove_file(&out_path);
     let stdout = match std::fs::File::create(dir.join("stdout.txt")) {
         Ok(f) => f,
-        Err(err) => return (None, Err(format!("cannot create stdout.txt: {err}"))),
+        Err(err) => return (None, Outcome::Failed(format!("cannot create stdout.txt: {err}"))),
     };
     let stderr = match std::fs::File::create(dir.join("stderr.txt")) {
         Ok(f) => f,
-        Err(err) => return (None, Err(format!("cannot create stderr.txt: {err}"))),
+        Err(err) => return (None, Outcome::Failed(format!("cannot create stderr.txt: {err}"))),
     };
     let prog = program(study, &argv[0]);
     let mut child = match Command::new(&prog)
@@ -267,7 +293,7 @@ fn attempt(study: &Study, e: &Experiment, argv: &[String], dir: &Path) -> (Optio
         .spawn()
     {
         Ok(c) => c,
-        Err(err) => return (None, Err(format!("cannot start `{}`: {err}", prog.display()))),
+        Err(err) => return (None, Outcome::Failed(format!("cannot start `{}`: {err}", prog.display()))),
     };
     let deadline = Instant::now() + Duration::from_secs_f64(sim.timeout_s);
     let mut pause = Duration::from_millis(2);
@@ -275,14 +301,20 @@ fn attempt(study: &Study, e: &Experiment, argv: &[String], dir: &Path) -> (Optio
         match child.try_wait() {
             Ok(Some(st)) => break st,
             Ok(None) => {}
-            Err(err) => return (None, Err(format!("cannot wait for the simulator: {err}"))),
+            Err(err) => return (None, Outcome::Failed(format!("cannot wait for the simulator: {err}"))),
+        }
+        if stop.load(Ordering::SeqCst) {
+            let pgid = nix::unistd::Pid::from_raw(child.id() as i32);
+            let _ = nix::sys::signal::killpg(pgid, nix::sys::signal::Signal::SIGKILL);
+            let _ = child.wait();
+            return (None, Outcome::Interrupted);
         }
         if Instant::now() >= deadline {
             // Kill the whole process group: simulators often start helpers.
             let pgid = nix::unistd::Pid::from_raw(child.id() as i32);
             let _ = nix::sys::signal::killpg(pgid, nix::sys::signal::Signal::SIGKILL);
             let _ = child.wait();
-            return (None, Err(format!("timed out after {} s (simulator.timeout_s); process group killed", sim.timeout_s)));
+            return (None, Outcome::Failed(format!("timed out after {} s (simulator.timeout_s); process group killed", sim.timeout_s)));
         }
         std::thread::sleep(pause);
         pause = (pause * 2).min(Duration::from_millis(100));
@@ -295,22 +327,22 @@ fn attempt(study: &Study, e: &Experiment, argv: &[String], dir: &Path) -> (Optio
             Some(c) => format!("exit code {c}"),
             None => "killed by a signal".to_string(),
         };
-        return (code, Err(if tail.is_empty() { why } else { format!("{why}; stderr: {tail}") }));
+        return (code, Outcome::Failed(if tail.is_empty() { why } else { format!("{why}; stderr: {tail}") }));
     }
     let text = match std::fs::read_to_string(&out_path) {
         Ok(t) => t,
-        Err(err) => return (code, Err(format!("output file `{}` not readable: {err}", sim.output.file))),
+        Err(err) => return (code, Outcome::Failed(format!("output file `{}` not readable: {err}", sim.output.file))),
     };
     let parsed = match parse_output(&text, sim.output.format, sim.output.x.as_deref(), &sim.output.y) {
         Ok(p) => p,
-        Err(m) => return (code, Err(format!("output file `{}`: {m}", sim.output.file))),
+        Err(m) => return (code, Outcome::Failed(format!("output file `{}`: {m}", sim.output.file))),
     };
     let values = match match_stations(&parsed, &e.data.stations()) {
         Ok(v) => v,
-        Err(m) => return (code, Err(format!("output file `{}`: {m}", sim.output.file))),
+        Err(m) => return (code, Outcome::Failed(format!("output file `{}`: {m}", sim.output.file))),
     };
     match sha256_file(&out_path) {
-        Ok(h) => (code, Ok((values, h))),
-        Err(err) => (code, Err(format!("cannot hash the output: {err}"))),
+        Ok(h) => (code, Outcome::Done(values, h)),
+        Err(err) => (code, Outcome::Failed(format!("cannot hash the output: {err}"))),
     }
 }

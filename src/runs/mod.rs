@@ -10,7 +10,7 @@ mod local;
 pub mod parse;
 mod store;
 
-pub use local::{run_all, RunSummary};
+pub use local::{run_all, value_names, RunSummary};
 pub use store::{
     load_runs, run_dir, run_record_path, status_counts, ExperimentRuns, RunBody, RunSet, RunState,
     StateCounts,

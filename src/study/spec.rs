@@ -1,11 +1,13 @@
 //! The wire shape of `study.yaml`. Every struct denies unknown keys; defaults are
 //! documented on each field and in `docs/study.md`.
 
-use serde::{Deserialize, Serialize};
+use serde::de::Error as _;
+use serde::{Deserialize, Deserializer};
+use serde_yaml::Value;
 use std::collections::BTreeMap;
 
 /// The whole study file.
-#[derive(Debug, Clone, Deserialize, Serialize)]
+#[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct StudySpec {
     /// Campaign folder name, `[A-Za-z0-9._-]+`.
@@ -26,7 +28,7 @@ pub struct StudySpec {
     pub calibration: CalibrationSpec,
 }
 
-#[derive(Debug, Clone, Deserialize, Serialize)]
+#[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct ParameterSpec {
     pub name: String,
@@ -39,8 +41,8 @@ pub struct ParameterSpec {
     pub prior: PriorSpec,
 }
 
-#[derive(Debug, Clone, Default, Deserialize, Serialize, PartialEq)]
-#[serde(rename_all = "lowercase", deny_unknown_fields)]
+/// `uniform` | `{normal: {mean, sd}}` | `{lognormal: {mu, sigma}}`.
+#[derive(Debug, Clone, Default, PartialEq)]
 pub enum PriorSpec {
     #[default]
     Uniform,
@@ -54,7 +56,7 @@ pub enum PriorSpec {
     },
 }
 
-#[derive(Debug, Clone, Deserialize, Serialize)]
+#[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct SimulatorSpec {
     /// argv; the first element is the program. Never run through a shell.
@@ -74,7 +76,7 @@ fn default_timeout() -> f64 {
     3600.0
 }
 
-#[derive(Debug, Clone, Deserialize, Serialize)]
+#[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct FileSpec {
     /// Template path, relative to the study file.
@@ -83,7 +85,7 @@ pub struct FileSpec {
     pub to: String,
 }
 
-#[derive(Debug, Clone, Deserialize, Serialize)]
+#[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct OutputSpecWire {
     /// Output file, relative to the run folder.
@@ -98,7 +100,7 @@ pub struct OutputSpecWire {
     pub y: Vec<String>,
 }
 
-#[derive(Debug, Clone, Copy, Default, Deserialize, Serialize, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, Default, Deserialize, PartialEq, Eq)]
 #[serde(rename_all = "lowercase")]
 pub enum OutputFormatWire {
     #[default]
@@ -107,7 +109,7 @@ pub enum OutputFormatWire {
     Json,
 }
 
-#[derive(Debug, Clone, Deserialize, Serialize)]
+#[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct ExperimentSpec {
     /// `[A-Za-z0-9._-]+`, unique; also a folder name.
@@ -120,15 +122,15 @@ pub struct ExperimentSpec {
     pub noise: NoiseSpec,
 }
 
-#[derive(Debug, Clone, Deserialize, Serialize, PartialEq)]
+#[derive(Debug, Clone, Deserialize, PartialEq)]
 #[serde(untagged)]
 pub enum SettingValue {
     Number(f64),
     Text(String),
 }
 
-#[derive(Debug, Clone, Deserialize, Serialize, PartialEq)]
-#[serde(rename_all = "snake_case", deny_unknown_fields)]
+/// `{sd: v}` | `{sd_column: name}` | `{unknown: {shape, scale}}`.
+#[derive(Debug, Clone, PartialEq)]
 pub enum NoiseSpec {
     /// Known measurement sd, in the output's unit.
     Sd(f64),
@@ -138,7 +140,7 @@ pub enum NoiseSpec {
     Unknown { shape: f64, scale: f64 },
 }
 
-#[derive(Debug, Clone, Deserialize, Serialize)]
+#[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct DesignSpec {
     /// Default `lhs`.
@@ -166,7 +168,7 @@ fn default_seed() -> u64 {
     1
 }
 
-#[derive(Debug, Clone, Copy, Default, Deserialize, Serialize, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, Default, Deserialize, serde::Serialize, PartialEq, Eq)]
 #[serde(rename_all = "lowercase")]
 pub enum DesignMethod {
     /// Latin hypercube.
@@ -176,7 +178,7 @@ pub enum DesignMethod {
     Random,
 }
 
-#[derive(Debug, Clone, Default, Deserialize, Serialize)]
+#[derive(Debug, Clone, Default, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct ExecutionSpec {
     /// Default `local`.
@@ -187,14 +189,14 @@ pub struct ExecutionSpec {
     pub jobs: Option<usize>,
 }
 
-#[derive(Debug, Clone, Copy, Default, Deserialize, Serialize, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, Default, Deserialize, PartialEq, Eq)]
 #[serde(rename_all = "lowercase")]
 pub enum Backend {
     #[default]
     Local,
 }
 
-#[derive(Debug, Clone, Default, Deserialize, Serialize)]
+#[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct SurrogateSpec {
     /// Default `matern52`.
@@ -203,9 +205,18 @@ pub struct SurrogateSpec {
     /// Default `constant`.
     #[serde(default)]
     pub mean: MeanChoice,
+    /// Seed of the hyperparameter search starts. Default 1.
+    #[serde(default = "default_seed")]
+    pub seed: u64,
 }
 
-#[derive(Debug, Clone, Copy, Default, Deserialize, Serialize, PartialEq, Eq)]
+impl Default for SurrogateSpec {
+    fn default() -> Self {
+        Self { kernel: KernelChoice::default(), mean: MeanChoice::default(), seed: default_seed() }
+    }
+}
+
+#[derive(Debug, Clone, Copy, Default, Deserialize, PartialEq, Eq)]
 pub enum KernelChoice {
     #[default]
     #[serde(rename = "matern52")]
@@ -216,7 +227,7 @@ pub enum KernelChoice {
     SquaredExponential,
 }
 
-#[derive(Debug, Clone, Copy, Default, Deserialize, Serialize, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, Default, Deserialize, PartialEq, Eq)]
 #[serde(rename_all = "lowercase")]
 pub enum MeanChoice {
     #[default]
@@ -224,7 +235,7 @@ pub enum MeanChoice {
     Linear,
 }
 
-#[derive(Debug, Clone, Deserialize, Serialize)]
+#[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct CalibrationSpec {
     /// Default 4.
@@ -260,4 +271,92 @@ fn default_warmup() -> usize {
 }
 fn default_draws() -> usize {
     4000
+}
+
+/// A one-key mapping `{key: value}` (the form of tagged choices in the study file).
+fn one_key(v: Value, what: &str, expected: &str) -> Result<(String, Value), String> {
+    match v {
+        Value::Mapping(m) if m.len() == 1 => {
+            let (k, v) = m.into_iter().next().expect("one entry");
+            match k {
+                Value::String(k) => Ok((k, v)),
+                other => Err(format!("{what}: key {other:?} is not a name; expected {expected}")),
+            }
+        }
+        Value::Mapping(m) => Err(format!("{what}: expected exactly one of {expected}, found {} keys", m.len())),
+        other => Err(format!("{what}: expected {expected}, found {}", kind(&other))),
+    }
+}
+
+fn kind(v: &Value) -> &'static str {
+    match v {
+        Value::Null => "nothing",
+        Value::Bool(_) => "a boolean",
+        Value::Number(_) => "a number",
+        Value::String(_) => "a string",
+        Value::Sequence(_) => "a list",
+        Value::Mapping(_) => "a mapping",
+        Value::Tagged(_) => "a tagged value",
+    }
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct NormalWire {
+    mean: f64,
+    sd: f64,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct LognormalWire {
+    mu: f64,
+    sigma: f64,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct UnknownWire {
+    shape: f64,
+    scale: f64,
+}
+
+fn sub<T: serde::de::DeserializeOwned>(v: Value, key: &str) -> Result<T, String> {
+    serde_yaml::from_value(v).map_err(|e| format!("{key}: {}", e.to_string().replace("unknown field", "unknown key")))
+}
+
+impl<'de> Deserialize<'de> for PriorSpec {
+    fn deserialize<D: Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+        const EXPECTED: &str = "`uniform`, `{normal: {mean, sd}}` or `{lognormal: {mu, sigma}}`";
+        let v = Value::deserialize(d)?;
+        if let Value::String(s) = &v {
+            return match s.as_str() {
+                "uniform" => Ok(PriorSpec::Uniform),
+                other => Err(D::Error::custom(format!("unknown prior `{other}`; expected {EXPECTED}"))),
+            };
+        }
+        let (k, inner) = one_key(v, "prior", EXPECTED).map_err(D::Error::custom)?;
+        match k.as_str() {
+            "normal" => sub::<NormalWire>(inner, "normal").map(|w| PriorSpec::Normal { mean: w.mean, sd: w.sd }),
+            "lognormal" => sub::<LognormalWire>(inner, "lognormal").map(|w| PriorSpec::Lognormal { mu: w.mu, sigma: w.sigma }),
+            "uniform" => Ok(PriorSpec::Uniform),
+            other => Err(format!("unknown prior `{other}`; expected {EXPECTED}")),
+        }
+        .map_err(D::Error::custom)
+    }
+}
+
+impl<'de> Deserialize<'de> for NoiseSpec {
+    fn deserialize<D: Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+        const EXPECTED: &str = "`{sd: v}`, `{sd_column: name}` or `{unknown: {shape, scale}}`";
+        let v = Value::deserialize(d)?;
+        let (k, inner) = one_key(v, "noise", EXPECTED).map_err(D::Error::custom)?;
+        match k.as_str() {
+            "sd" => sub::<f64>(inner, "sd").map(NoiseSpec::Sd),
+            "sd_column" => sub::<String>(inner, "sd_column").map(NoiseSpec::SdColumn),
+            "unknown" => sub::<UnknownWire>(inner, "unknown").map(|w| NoiseSpec::Unknown { shape: w.shape, scale: w.scale }),
+            other => Err(format!("unknown noise form `{other}`; expected {EXPECTED}")),
+        }
+        .map_err(D::Error::custom)
+    }
 }

@@ -94,6 +94,7 @@ pub struct DesignParams {
 pub struct SurrogateParams {
     pub kernel: KernelChoice,
     pub mean: MeanChoice,
+    pub seed: u64,
 }
 
 /// Calibration settings after defaults.
@@ -490,6 +491,7 @@ pub fn parse(
         surrogate: SurrogateParams {
             kernel: spec.surrogate.kernel,
             mean: spec.surrogate.mean,
+            seed: spec.surrogate.seed,
         },
         calibration: CalibrationParams {
             chains: cal.chains,

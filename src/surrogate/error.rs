@@ -10,6 +10,8 @@ pub enum SurrogateError {
     TrendNotIdentifiable { n: usize, m: usize },
     #[error("experiment `{experiment}` has {n} finished runs; at least {min} are needed to fit a surrogate")]
     TooFewRuns { experiment: String, n: usize, min: usize },
+    #[error("a hyperparameter is not a finite number (the search diverged)")]
+    NonFiniteHyperparameters,
     #[error("every start of the hyperparameter search failed for `{output}`: {reason}")]
     OptimisationFailed { output: String, reason: String },
 }

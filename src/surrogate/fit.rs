@@ -25,11 +25,12 @@ impl Default for HyperBounds {
     fn default() -> Self {
         Self {
             // Standardised outputs have variance 1; a trend can leave far less.
-            ln_signal_var: (1e-4f64.ln(), 1e2f64.ln()),
+            ln_signal_var: (1e-4f64.ln(), 1e4f64.ln()),
             // In the unit box: from a hundredth of the range to far beyond it.
             ln_length_scale: (1e-2f64.ln(), 1e2f64.ln()),
-            // The floor keeps K well conditioned for smooth, noise-free simulators.
-            ln_nugget: (1e-8f64.ln(), 1e-1f64.ln()),
+            // Relative to σ²: the floor bounds cond(K) by about n·1e8 for smooth,
+            // noise-free simulators; the ceiling lets noisy simulators be smoothed.
+            ln_nugget: (1e-8f64.ln(), 1.0f64.ln()),
         }
     }
 }
@@ -124,6 +125,7 @@ pub fn fit_hyperparameters<R: Rng + ?Sized>(
     name: &str,
     rng: &mut R,
 ) -> Result<FitOutcome, SurrogateError> {
+    crate::init_blas();
     let d = x.ncols();
     let b = params.bounds;
     let mid = |(lo, hi): (f64, f64)| 0.5 * (lo + hi);

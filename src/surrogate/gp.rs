@@ -14,7 +14,7 @@
 use super::kernel::Kernel;
 use super::SurrogateError;
 use ndarray::{Array1, Array2, ArrayView1, ArrayView2};
-use ndarray_linalg::{CholeskyFactorized, FactorizeC, InverseC, UPLO};
+use ndarray_linalg::{CholeskyFactorized, Diag, FactorizeC, InverseC, SolveC, SolveTriangular, UPLO};
 
 /// Trend basis h(x).
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -60,12 +60,14 @@ impl Trend {
     }
 }
 
-/// Hyperparameters on the log scale: θ = (ln σ², ln ℓ_1 … ln ℓ_d, ln g), g the nugget
-/// variance added to the diagonal.
+/// Hyperparameters on the log scale: θ = (ln σ², ln ℓ_1 … ln ℓ_d, ln η), with
+/// K = σ² (P + η I): the nugget η is relative to the signal variance, so its floor bounds
+/// the condition number of K by about (n + η)/η whatever σ² is.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Hyper {
     pub ln_signal_var: f64,
     pub ln_length_scales: Vec<f64>,
+    /// ln η, the nugget relative to σ².
     pub ln_nugget: f64,
 }
 
@@ -95,6 +97,8 @@ pub struct Gp {
     pub trend: Trend,
     pub hyper: Hyper,
     x: Array2<f64>,
+    /// Lower Cholesky factor of K (used for every solve in prediction).
+    l: Array2<f64>,
     k_inv: Array2<f64>,
     k_inv_h: Array2<f64>,
     a_inv: Array2<f64>,
@@ -138,8 +142,11 @@ impl Gp {
         let n = x.nrows();
         let d = x.ncols();
         let m = trend.width(d);
+        if !hyper.to_vec().iter().all(|v| v.is_finite()) {
+            return Err(SurrogateError::NonFiniteHyperparameters);
+        }
         let mut k = covariance(kernel, &hyper, x, x);
-        let g = hyper.ln_nugget.exp();
+        let g = hyper.ln_signal_var.exp() * hyper.ln_nugget.exp();
         for i in 0..n {
             k[[i, i]] += g;
         }
@@ -149,7 +156,7 @@ impl Gp {
                 Ok(f) => break f,
                 Err(_) => {
                     let next = if jitter == 0.0 { 1e-10 * (hyper.ln_signal_var.exp()) } else { jitter * 10.0 };
-                    if next > MAX_JITTER * hyper.ln_signal_var.exp().max(1e-300) {
+                    if !(next <= MAX_JITTER * hyper.ln_signal_var.exp()) {
                         return Err(SurrogateError::NotPositiveDefinite { n, jitter: next });
                     }
                     for i in 0..n {
@@ -160,10 +167,15 @@ impl Gp {
             }
         };
         let ln_det_k = ln_det(&factor);
-        let k_inv = factor.invc().map_err(|_| SurrogateError::NotPositiveDefinite { n, jitter })?;
         let h = Array2::from_shape_fn((n, m), |(i, j)| trend.basis_row(x.row(i))[j]);
-        let k_inv_y = k_inv.dot(&y);
-        let k_inv_h = k_inv.dot(&h);
+        let solve = |b: ArrayView1<f64>| factor.solvec(&b.to_owned()).map_err(|_| SurrogateError::NotPositiveDefinite { n, jitter });
+        let k_inv_y = solve(y)?;
+        let mut k_inv_h = Array2::zeros((n, m));
+        for j in 0..m {
+            k_inv_h.column_mut(j).assign(&solve(h.column(j))?);
+        }
+        let k_inv = factor.invc().map_err(|_| SurrogateError::NotPositiveDefinite { n, jitter })?;
+        let l = factor.factor.clone();
         let (a_inv, beta, ln_det_a) = if m > 0 {
             let a = h.t().dot(&k_inv_h);
             let fa = a.factorizec(UPLO::Lower).map_err(|_| SurrogateError::TrendNotIdentifiable { n, m })?;
@@ -185,6 +197,7 @@ impl Gp {
             trend,
             hyper,
             x: x.to_owned(),
+            l,
             k_inv,
             k_inv_h,
             a_inv,
@@ -196,16 +209,17 @@ impl Gp {
         })
     }
 
-    /// Gradient of [`Gp::ln_marginal_likelihood`] with respect to (ln σ², ln ℓ…, ln g).
+    /// Gradient of [`Gp::ln_marginal_likelihood`] with respect to (ln σ², ln ℓ…, ln η).
     ///
     /// # Formula
     /// ∂ ln p / ∂θ_j = ½ tr((α αᵀ − P) ∂K/∂θ_j), P = K⁻¹ − K⁻¹H A⁻¹ HᵀK⁻¹ (R&W eq. 5.9,
-    /// with P in place of K⁻¹ when a trend is integrated out).
+    /// with P in place of K⁻¹ when a trend is integrated out); ∂K/∂ln σ² = K,
+    /// ∂K/∂ln η = σ²η I, ∂K_ab/∂ln ℓ_d = σ² g(r)(Δ_d/ℓ_d)².
     pub fn gradient(&self) -> Vec<f64> {
         let n = self.x.nrows();
         let d = self.x.ncols();
         let s2 = self.hyper.ln_signal_var.exp();
-        let g = self.hyper.ln_nugget.exp();
+        let g = s2 * self.hyper.ln_nugget.exp();
         let p = &self.k_inv - &self.k_inv_h.dot(&self.a_inv).dot(&self.k_inv_h.t());
         let inv_l: Vec<f64> = self.hyper.ln_length_scales.iter().map(|l| (-l).exp()).collect();
         let mut grad = vec![0.0; d + 2];
@@ -220,6 +234,9 @@ impl Gp {
                 }
                 let r = r2.sqrt();
                 grad[0] += w * s2 * self.kernel.corr(r);
+                if a == b {
+                    grad[0] += w * g;
+                }
                 let gr = s2 * self.kernel.neg_dcorr_over_r(r);
                 for dd in 0..d {
                     grad[1 + dd] += w * gr * t[dd] * t[dd];
@@ -240,20 +257,25 @@ impl Gp {
     pub fn predict(&self, xs: ArrayView2<f64>) -> (Array1<f64>, Array1<f64>) {
         let ks = covariance(self.kernel, &self.hyper, xs, self.x.view());
         let s2 = self.hyper.ln_signal_var.exp();
+        // v = L⁻¹ k*: the variance by triangular solves, not by an explicit inverse.
+        let v = self
+            .l
+            .solve_triangular(UPLO::Lower, Diag::NonUnit, &ks.t().to_owned())
+            .expect("triangular solve with a Cholesky factor of positive diagonal");
         let n_star = xs.nrows();
         let mut mean = Array1::zeros(n_star);
         let mut var = Array1::zeros(n_star);
         for i in 0..n_star {
             let k = ks.row(i);
             let h = self.trend.basis_row(xs.row(i));
-            let kinv_k = self.k_inv.dot(&k);
             mean[i] = h.dot(&self.beta) + k.dot(&self.alpha);
-            let mut v = s2 - k.dot(&kinv_k);
+            let vi = v.column(i);
+            let mut var_i = s2 - vi.dot(&vi);
             if !self.beta.is_empty() {
                 let r = &h - &self.k_inv_h.t().dot(&k);
-                v += r.dot(&self.a_inv.dot(&r));
+                var_i += r.dot(&self.a_inv.dot(&r));
             }
-            var[i] = v.max(0.0);
+            var[i] = var_i.max(0.0);
         }
         (mean, var)
     }

@@ -161,6 +161,7 @@ fn validate_output(gp: Option<&Gp>, col: &[f64], mean: f64, sd: f64) -> Validati
 /// # Errors
 /// Too few runs for an experiment, or a hyperparameter search that fails for an output.
 pub fn fit_surrogate(runs: &RunSet, params: &[Parameter], settings: SurrogateParams, seed: u64) -> Result<FittedSurrogate, SurrogateError> {
+    crate::init_blas();
     let kernel = Kernel::from(settings.kernel);
     let trend = trend_of(settings.mean);
     let lo: Vec<f64> = params.iter().map(|p| p.lo).collect();

@@ -17,7 +17,7 @@ pub struct HyperWire {
     pub length_scales: BTreeMap<String, f64>,
     /// Nugget variance, output units squared.
     pub nugget: f64,
-    /// (ln σ², ln ℓ…, ln g) on standardised outputs and unit-box inputs: what the
+    /// (ln σ², ln ℓ…, ln η) on standardised outputs and unit-box inputs (η = nugget/σ²): what the
     /// surrogate is rebuilt from.
     pub ln_internal: Vec<f64>,
     /// Jitter added to factor the covariance (0 when none was needed).
@@ -96,7 +96,7 @@ impl SurrogateBody {
                                     .enumerate()
                                     .map(|(j, n)| (n.clone(), gp.hyper.ln_length_scales[j].exp() * (e.hi[j] - e.lo[j])))
                                     .collect(),
-                                nugget: gp.hyper.ln_nugget.exp() * s2,
+                                nugget: gp.hyper.ln_nugget.exp() * gp.hyper.ln_signal_var.exp() * s2,
                                 ln_internal: gp.hyper.to_vec(),
                                 jitter: gp.jitter,
                             }
@@ -118,6 +118,7 @@ impl SurrogateBody {
     /// # Errors
     /// An unknown kernel or mean name, or a factorisation that fails.
     pub fn to_fitted(&self) -> Result<FittedSurrogate, SurrogateError> {
+        crate::init_blas();
         let kernel = match self.kernel.as_str() {
             "matern32" => Kernel::Matern32,
             "squared-exponential" => Kernel::SquaredExponential,

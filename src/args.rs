@@ -1,0 +1,91 @@
+//! Command-line arguments (clap). What they mean is decided in `plan`.
+
+use clap::{Args, Parser, Subcommand, ValueEnum};
+use std::path::PathBuf;
+
+const EXAMPLES: &str = "\
+Examples:
+  assay validate models/cantilever/study.yaml     check a study and print a summary
+  assay all models/cantilever/study.yaml          design, run, fit and calibrate, reusing up-to-date stages
+  assay run --jobs 8 study.yaml                   run pending and failed runs, 8 at a time
+  assay --runs /scratch/me/campaigns status study.yaml
+
+Exit codes: 0 success; 2 bad input (study, data, arguments); 3 finished but some runs failed; 1 other failures.
+Campaign records go to <runs>/<study name>/ (default ./runs).";
+
+/// Calibrate the parameters of an expensive simulator: spread runs over the parameter
+/// box, run them, fit a Gaussian-process surrogate and sample the posterior by MCMC,
+/// leaving YAML records a reviewer can verify.
+#[derive(Debug, Parser)]
+#[command(name = "assay", version, about, long_about = None, after_help = EXAMPLES)]
+pub struct Cli {
+    /// Folder that holds campaign folders (one per study name).
+    #[arg(long, global = true, value_name = "DIR", default_value = "runs")]
+    pub runs: PathBuf,
+
+    /// No progress bars or notes; results and errors only.
+    #[arg(long, short, global = true)]
+    pub quiet: bool,
+
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Parse and check the study and print a summary (exit 2 on any error).
+    #[command(after_help = "Example:\n  assay validate models/cantilever/study.yaml")]
+    Validate(StudyArg),
+    /// Write the design (design.yaml): where the simulator will run.
+    #[command(after_help = "Example:\n  assay design models/cantilever/study.yaml\n\nAn existing design made with the same settings is kept.")]
+    Design(DesignArgs),
+    /// Run every pending or failed run of the design.
+    #[command(after_help = "Examples:\n  assay run study.yaml\n  assay run --jobs 4 study.yaml\n\nFinished runs are never repeated; Ctrl-C stops cleanly and leaves interrupted runs pending.")]
+    Run(RunArgs),
+    /// Counts of runs by state, per experiment.
+    #[command(after_help = "Example:\n  assay status models/cantilever/study.yaml")]
+    Status(StudyArg),
+    /// Fit and validate the surrogate (surrogate.yaml).
+    #[command(after_help = "Example:\n  assay fit models/cantilever/study.yaml")]
+    Fit(StudyArg),
+    /// Sample the posterior against the field data (posterior.yaml, posterior-samples.csv).
+    #[command(after_help = "Example:\n  assay calibrate models/cantilever/study.yaml\n\nCtrl-C stops sampling and keeps the draws made so far (recorded as interrupted).")]
+    Calibrate(StudyArg),
+    /// Every stage in order, reusing stages whose inputs are unchanged.
+    #[command(after_help = "Example:\n  assay all models/cantilever/study.yaml")]
+    All(RunArgs),
+}
+
+#[derive(Debug, Args)]
+pub struct StudyArg {
+    /// The study file.
+    #[arg(value_name = "STUDY.yaml")]
+    pub study: PathBuf,
+}
+
+#[derive(Debug, Args)]
+pub struct DesignArgs {
+    #[command(flatten)]
+    pub study: StudyArg,
+    /// Replace an existing design even if it was made with other settings.
+    #[arg(long)]
+    pub force: bool,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum BackendArg {
+    /// Child processes on this machine.
+    Local,
+}
+
+#[derive(Debug, Args)]
+pub struct RunArgs {
+    #[command(flatten)]
+    pub study: StudyArg,
+    /// Concurrent runs (default: execution.jobs of the study, else the number of CPUs).
+    #[arg(long, short, value_name = "N", value_parser = clap::value_parser!(u32).range(1..))]
+    pub jobs: Option<u32>,
+    /// Where runs execute (default: execution.backend of the study).
+    #[arg(long, value_enum)]
+    pub backend: Option<BackendArg>,
+}

@@ -1,0 +1,13 @@
+//! From parsed arguments and the study to what will be done: the one place where
+//! defaults from the command line, the study and the machine are combined.
+
+use crate::args::RunArgs;
+use assay::study::Study;
+
+/// Concurrent runs: `--jobs`, else `execution.jobs`, else the number of CPUs.
+pub fn jobs(args: &RunArgs, study: &Study) -> usize {
+    args.jobs
+        .map(|j| j as usize)
+        .or(study.jobs)
+        .unwrap_or_else(|| std::thread::available_parallelism().map(|n| n.get()).unwrap_or(1))
+}
