@@ -37,10 +37,14 @@ pub enum Command {
     #[command(after_help = "Example:\n  assay validate models/cantilever/study.yaml")]
     Validate(StudyArg),
     /// Write the design (design.yaml): where the simulator will run.
-    #[command(after_help = "Example:\n  assay design models/cantilever/study.yaml\n\nAn existing design made with the same settings is kept.")]
+    #[command(
+        after_help = "Example:\n  assay design models/cantilever/study.yaml\n\nAn existing design made with the same settings is kept."
+    )]
     Design(DesignArgs),
     /// Run every pending or failed run of the design.
-    #[command(after_help = "Examples:\n  assay run study.yaml\n  assay run --jobs 4 study.yaml\n\nFinished runs are never repeated; Ctrl-C stops cleanly and leaves interrupted runs pending.")]
+    #[command(
+        after_help = "Examples:\n  assay run study.yaml\n  assay run --jobs 4 study.yaml\n\nFinished runs are never repeated; Ctrl-C stops cleanly and leaves interrupted runs pending."
+    )]
     Run(RunArgs),
     /// Counts of runs by state, per experiment.
     #[command(after_help = "Example:\n  assay status models/cantilever/study.yaml")]
@@ -49,7 +53,9 @@ pub enum Command {
     #[command(after_help = "Example:\n  assay fit models/cantilever/study.yaml")]
     Fit(StudyArg),
     /// Sample the posterior against the field data (posterior.yaml, posterior-samples.csv).
-    #[command(after_help = "Example:\n  assay calibrate models/cantilever/study.yaml\n\nCtrl-C stops sampling and keeps the draws made so far (recorded as interrupted).")]
+    #[command(
+        after_help = "Example:\n  assay calibrate models/cantilever/study.yaml\n\nCtrl-C stops sampling and keeps the draws made so far (recorded as interrupted)."
+    )]
     Calibrate(StudyArg),
     /// Every stage in order, reusing stages whose inputs are unchanged.
     #[command(after_help = "Example:\n  assay all models/cantilever/study.yaml")]

@@ -4,10 +4,15 @@
 //! Layout of `<runs>/<study name>/`: `design.yaml`, `runs/<point>/<experiment>/run.yaml`,
 //! `surrogate.yaml`, `posterior.yaml`, `posterior-samples.csv`.
 
-use crate::calibrate::{sample, summarize, Emulator, ExperimentLikelihood, LogPosterior, PosteriorBody, PosteriorSummary, SamplerParams};
+use crate::calibrate::{
+    sample, summarize, Emulator, ExperimentLikelihood, LogPosterior, PosteriorBody,
+    PosteriorSummary, SamplerParams,
+};
 use crate::design::{self, Design, DesignBody};
 use crate::progress::Observer;
-use crate::record::{read_record, sha256_file, write_atomic, write_record, ProvenanceClock, Record};
+use crate::record::{
+    read_record, sha256_file, write_atomic, write_record, ProvenanceClock, Record,
+};
 use crate::runs::{self, RunBody, RunSummary, StateCounts};
 use crate::study::Study;
 use crate::surrogate::{fit_surrogate, FittedSurrogate, SurrogateBody, Validation};
@@ -38,7 +43,11 @@ pub const SAMPLES_FILE: &str = "posterior-samples.csv";
 impl Campaign {
     pub fn new(study: Study, runs_root: &Path, command_line: Vec<String>) -> Self {
         let dir = runs_root.join(&study.name);
-        Self { study, dir, command_line }
+        Self {
+            study,
+            dir,
+            command_line,
+        }
     }
 
     pub fn path(&self, file: &str) -> PathBuf {
@@ -51,7 +60,9 @@ impl Campaign {
 
     fn hash_study_inputs(&self, clock: &mut ProvenanceClock) -> Result<()> {
         for f in self.study.input_files() {
-            clock.input(&f).with_context(|| format!("cannot hash {}", f.display()))?;
+            clock
+                .input(&f)
+                .with_context(|| format!("cannot hash {}", f.display()))?;
         }
         Ok(())
     }
@@ -69,7 +80,11 @@ pub enum DesignOutcome {
 fn design_mismatch(study: &Study, existing: &Design) -> Option<String> {
     let s = &study.design;
     if existing.names != study.parameter_names() {
-        return Some(format!("its parameters {:?} differ from the study's {:?}", existing.names, study.parameter_names()));
+        return Some(format!(
+            "its parameters {:?} differ from the study's {:?}",
+            existing.names,
+            study.parameter_names()
+        ));
     }
     if existing.method != s.method || existing.seed != s.seed || existing.points.len() != s.points {
         return Some(format!(
@@ -85,7 +100,10 @@ fn design_mismatch(study: &Study, existing: &Design) -> Option<String> {
     for p in &existing.points {
         for (v, par) in p.values.iter().zip(&study.parameters) {
             if *v < par.lo || *v > par.hi {
-                return Some(format!("point {} has {} = {v} outside the range [{}, {}]", p.id, par.name, par.lo, par.hi));
+                return Some(format!(
+                    "point {} has {} = {v} outside the range [{}, {}]",
+                    p.id, par.name, par.lo, par.hi
+                ));
             }
         }
     }
@@ -115,8 +133,17 @@ pub fn write_design(c: &Campaign, force: bool) -> Result<(Design, DesignOutcome)
     c.hash_study_inputs(&mut clock)?;
     clock.seed("design", c.study.design.seed);
     let mut rng = crate::rng::stream(c.study.design.seed, 0);
-    let d = design::generate(&c.study.parameters, c.study.design.method, c.study.design.points, c.study.design.seed, &mut rng);
-    write_record(&path, &Record::new("design", clock.finish(), DesignBody::from(&d)))?;
+    let d = design::generate(
+        &c.study.parameters,
+        c.study.design.method,
+        c.study.design.points,
+        c.study.design.seed,
+        &mut rng,
+    );
+    write_record(
+        &path,
+        &Record::new("design", clock.finish(), DesignBody::from(&d)),
+    )?;
     Ok((d, DesignOutcome::Created))
 }
 
@@ -127,23 +154,46 @@ pub fn write_design(c: &Campaign, force: bool) -> Result<(Design, DesignOutcome)
 pub fn load_design(c: &Campaign) -> Result<Design> {
     let path = c.path(DESIGN_FILE);
     if !path.exists() {
-        bail!("no design at {}: run `assay design {}` first", path.display(), c.study.file.display());
+        bail!(
+            "no design at {}: run `assay design {}` first",
+            path.display(),
+            c.study.file.display()
+        );
     }
     let rec: Record<DesignBody> = read_record(&path)?;
-    rec.body.to_design().with_context(|| format!("{} is malformed", path.display()))
+    rec.body
+        .to_design()
+        .with_context(|| format!("{} is malformed", path.display()))
 }
 
 /// Run every pending or failed run of the design.
-pub fn run_stage(c: &Campaign, jobs: usize, stop: &AtomicBool, observer: &dyn Observer) -> Result<RunSummary> {
+pub fn run_stage(
+    c: &Campaign,
+    jobs: usize,
+    stop: &AtomicBool,
+    observer: &dyn Observer,
+) -> Result<RunSummary> {
     let design = load_design(c)?;
-    runs::run_all(&c.study, &design, &c.dir, jobs, &c.command_line, stop, observer)
+    runs::run_all(
+        &c.study,
+        &design,
+        &c.dir,
+        jobs,
+        &c.command_line,
+        stop,
+        observer,
+    )
 }
 
 /// Counts of runs by state per experiment.
 pub fn status(c: &Campaign) -> Result<(usize, BTreeMap<String, StateCounts>, Vec<RunBody>)> {
     let design = load_design(c)?;
     let (_, bodies) = runs::load_runs(&c.study, &design, &c.dir)?;
-    Ok((design.points.len(), runs::status_counts(&c.study, &design, &bodies), bodies))
+    Ok((
+        design.points.len(),
+        runs::status_counts(&c.study, &design, &bodies),
+        bodies,
+    ))
 }
 
 /// Fit the surrogate to the finished runs and write `surrogate.yaml`.
@@ -162,20 +212,40 @@ pub fn fit_stage(c: &Campaign) -> Result<FittedSurrogate> {
     clock.seed("surrogate", seed);
     let fitted = fit_surrogate(&set, &c.study.parameters, c.study.surrogate, seed)?;
     let body = SurrogateBody::from_fitted(&fitted, &c.study.parameter_names());
-    write_record(&c.path(SURROGATE_FILE), &Record::new("surrogate", clock.finish(), body))?;
+    write_record(
+        &c.path(SURROGATE_FILE),
+        &Record::new("surrogate", clock.finish(), body),
+    )?;
     Ok(fitted)
 }
 
 /// Validation of each experiment's surrogate, for printing.
 pub fn validation_table(s: &FittedSurrogate) -> Vec<(String, usize, Validation)> {
-    s.experiments.iter().map(|e| (e.experiment.clone(), e.point_ids.len(), e.validation.clone())).collect()
+    s.experiments
+        .iter()
+        .map(|e| {
+            (
+                e.experiment.clone(),
+                e.point_ids.len(),
+                e.validation.clone(),
+            )
+        })
+        .collect()
 }
 
 /// Sample the posterior and write `posterior.yaml` and `posterior-samples.csv`.
-pub fn calibrate_stage(c: &Campaign, stop: &AtomicBool, observer: &dyn Observer) -> Result<PosteriorSummary> {
+pub fn calibrate_stage(
+    c: &Campaign,
+    stop: &AtomicBool,
+    observer: &dyn Observer,
+) -> Result<PosteriorSummary> {
     let spath = c.path(SURROGATE_FILE);
     if !spath.exists() {
-        bail!("no surrogate at {}: run `assay fit {}` first", spath.display(), c.study.file.display());
+        bail!(
+            "no surrogate at {}: run `assay fit {}` first",
+            spath.display(),
+            c.study.file.display()
+        );
     }
     let mut clock = c.clock();
     c.hash_study_inputs(&mut clock)?;
@@ -188,7 +258,12 @@ pub fn calibrate_stage(c: &Campaign, stop: &AtomicBool, observer: &dyn Observer)
             .experiments
             .iter()
             .find(|m| m.experiment == e.name)
-            .with_context(|| format!("the surrogate has no experiment `{}`: run `assay fit` again", e.name))?;
+            .with_context(|| {
+                format!(
+                    "the surrogate has no experiment `{}`: run `assay fit` again",
+                    e.name
+                )
+            })?;
         let names = runs::value_names(&c.study, e);
         let have: Vec<String> = model.outputs.iter().map(|o| o.name.clone()).collect();
         if names != have {
@@ -201,16 +276,26 @@ pub fn calibrate_stage(c: &Campaign, stop: &AtomicBool, observer: &dyn Observer)
             .into());
         }
         let targets = e.data.targets(c.study.simulator.output.y.len());
-        experiments.push((model as &dyn Emulator, ExperimentLikelihood::new(e, &targets)));
+        experiments.push((
+            model as &dyn Emulator,
+            ExperimentLikelihood::new(e, &targets),
+        ));
     }
     let cal = &c.study.calibration;
-    let params = SamplerParams { chains: cal.chains, warmup: cal.warmup, draws: cal.draws, seed: cal.seed };
+    let params = SamplerParams {
+        chains: cal.chains,
+        warmup: cal.warmup,
+        draws: cal.draws,
+        seed: cal.seed,
+    };
     clock.seed("calibration", cal.seed);
     let post = LogPosterior::new(c.study.parameters.clone(), experiments);
     let chains = sample(&post, &params, stop, observer);
     let names = c.study.parameter_names();
     let summary = summarize(&names, &chains);
-    let n_eval = post.n_evaluations.load(std::sync::atomic::Ordering::Relaxed);
+    let n_eval = post
+        .n_evaluations
+        .load(std::sync::atomic::Ordering::Relaxed);
 
     let mut csv = csv::Writer::from_writer(Vec::new());
     let mut header = vec!["chain".to_string(), "draw".to_string()];
@@ -243,8 +328,12 @@ fn mtime(p: &Path) -> Option<SystemTime> {
 
 /// Is the record at `output` missing or older than any of `inputs`?
 pub fn is_stale(output: &Path, inputs: &[PathBuf]) -> bool {
-    let Some(out) = mtime(output) else { return true };
-    inputs.iter().any(|i| mtime(i).map(|t| t > out).unwrap_or(true))
+    let Some(out) = mtime(output) else {
+        return true;
+    };
+    inputs
+        .iter()
+        .any(|i| mtime(i).map(|t| t > out).unwrap_or(true))
 }
 
 /// Inputs of the fit stage: the study's files, the design and every run record.

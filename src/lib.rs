@@ -5,14 +5,14 @@
 //! The numerical stages (design, surrogate, calibrate) open no files and print nothing.
 #![deny(unsafe_code)]
 
-pub mod study;
-pub mod design;
-pub mod record;
-pub mod rng;
-pub mod progress;
-pub mod runs;
-pub mod surrogate;
 mod blas;
 pub mod calibrate;
+pub mod design;
+pub mod progress;
+pub mod record;
+pub mod rng;
+pub mod runs;
+pub mod study;
+pub mod surrogate;
 pub use blas::init as init_blas;
 pub mod campaign;

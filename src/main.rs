@@ -45,19 +45,24 @@ struct Bar {
 
 impl Bar {
     fn new() -> Self {
-        Self { bar: ProgressBar::hidden() }
+        Self {
+            bar: ProgressBar::hidden(),
+        }
     }
 }
 
 impl Observer for Bar {
     fn start(&self, task: &str, total: u64) {
-        self.bar.set_draw_target(indicatif::ProgressDrawTarget::stderr());
+        self.bar
+            .set_draw_target(indicatif::ProgressDrawTarget::stderr());
         self.bar.set_length(total);
         self.bar.set_position(0);
         self.bar.set_style(
-            ProgressStyle::with_template("{prefix:>10} [{bar:30}] {pos}/{len} {msg} ({elapsed}, eta {eta})")
-                .expect("valid template")
-                .progress_chars("=> "),
+            ProgressStyle::with_template(
+                "{prefix:>10} [{bar:30}] {pos}/{len} {msg} ({elapsed}, eta {eta})",
+            )
+            .expect("valid template")
+            .progress_chars("=> "),
         );
         self.bar.set_prefix(task.to_string());
         self.bar.reset_elapsed();
@@ -109,28 +114,66 @@ fn print_summary(s: &Study, c: &Campaign) {
     out!("  campaign folder: {}", c.dir.display());
     out!("  parameters:");
     for p in &s.parameters {
-        let unit = p.unit.as_deref().map(|u| format!(" {u}")).unwrap_or_default();
-        out!("    {:<12} [{}, {}]{unit}  prior {:?}", p.name, p.lo, p.hi, p.prior);
+        let unit = p
+            .unit
+            .as_deref()
+            .map(|u| format!(" {u}"))
+            .unwrap_or_default();
+        out!(
+            "    {:<12} [{}, {}]{unit}  prior {:?}",
+            p.name,
+            p.lo,
+            p.hi,
+            p.prior
+        );
     }
     out!("  simulator: {}", s.simulator.command.join(" "));
     out!("  experiments:");
     for e in &s.experiments {
         let st = e.data.stations();
-        out!("    {:<12} {} data rows at {} output locations, data {}", e.name, e.data.rows.len(), st.len(), e.data_path.display());
+        out!(
+            "    {:<12} {} data rows at {} output locations, data {}",
+            e.name,
+            e.data.rows.len(),
+            st.len(),
+            e.data_path.display()
+        );
     }
-    out!("  design: {:?}, {} points, seed {}", s.design.method, s.design.points, s.design.seed);
+    out!(
+        "  design: {:?}, {} points, seed {}",
+        s.design.method,
+        s.design.points,
+        s.design.seed
+    );
     out!(
         "  calibration: {} chains × ({} warm-up + {} draws), seed {}",
-        s.calibration.chains, s.calibration.warmup, s.calibration.draws, s.calibration.seed
+        s.calibration.chains,
+        s.calibration.warmup,
+        s.calibration.draws,
+        s.calibration.seed
     );
 }
 
 fn print_status(c: &Campaign) -> Result<()> {
     let (n_points, counts, _) = campaign::status(c)?;
     out!("{} design points; runs by state:", n_points);
-    out!("  {:<16} {:>8} {:>8} {:>8} {:>8}", "experiment", "pending", "running", "done", "failed");
+    out!(
+        "  {:<16} {:>8} {:>8} {:>8} {:>8}",
+        "experiment",
+        "pending",
+        "running",
+        "done",
+        "failed"
+    );
     for (e, k) in counts {
-        out!("  {:<16} {:>8} {:>8} {:>8} {:>8}", e, k.pending, k.running, k.done, k.failed);
+        out!(
+            "  {:<16} {:>8} {:>8} {:>8} {:>8}",
+            e,
+            k.pending,
+            k.running,
+            k.done,
+            k.failed
+        );
     }
     Ok(())
 }
@@ -138,13 +181,30 @@ fn print_status(c: &Campaign) -> Result<()> {
 fn print_posterior(c: &Campaign) -> Result<()> {
     let rec: Record<PosteriorBody> = read_record(&c.path(campaign::POSTERIOR_FILE))?;
     let b = &rec.body;
-    out!("posterior ({} draws, {} chains) — {}", b.n_draws, b.chains.len(), c.path(campaign::POSTERIOR_FILE).display());
+    out!(
+        "posterior ({} draws, {} chains) — {}",
+        b.n_draws,
+        b.chains.len(),
+        c.path(campaign::POSTERIOR_FILE).display()
+    );
     out!(
         "  {:<10} {:<9} {:>11} {:>10} {:>11} {:>11} {:>11} {:>11} {:>7} {:>8} {:>8}",
-        "parameter", "unit", "mean", "sd", "median", "q2.5%", "q97.5%", "MAP", "R-hat", "ESS bulk", "ESS tail"
+        "parameter",
+        "unit",
+        "mean",
+        "sd",
+        "median",
+        "q2.5%",
+        "q97.5%",
+        "MAP",
+        "R-hat",
+        "ESS bulk",
+        "ESS tail"
     );
     for p in &c.study.parameters {
-        let (Some(s), Some(d)): (Option<&ParameterSummary>, Option<&Diagnostics>) = (b.parameters.get(&p.name), b.diagnostics.get(&p.name)) else {
+        let (Some(s), Some(d)): (Option<&ParameterSummary>, Option<&Diagnostics>) =
+            (b.parameters.get(&p.name), b.diagnostics.get(&p.name))
+        else {
             continue;
         };
         out!(
@@ -170,10 +230,28 @@ fn print_posterior(c: &Campaign) -> Result<()> {
 }
 
 fn print_fit(s: &assay::surrogate::FittedSurrogate) {
-    out!("surrogate ({} kernel, {} mean), leave-one-out validation:", s.kernel.name(), s.trend.name());
-    out!("  {:<16} {:>6} {:>12} {:>8} {:>11}", "experiment", "runs", "rmse", "q2", "coverage95");
+    out!(
+        "surrogate ({} kernel, {} mean), leave-one-out validation:",
+        s.kernel.name(),
+        s.trend.name()
+    );
+    out!(
+        "  {:<16} {:>6} {:>12} {:>8} {:>11}",
+        "experiment",
+        "runs",
+        "rmse",
+        "q2",
+        "coverage95"
+    );
     for (e, n, v) in campaign::validation_table(s) {
-        out!("  {:<16} {:>6} {:>12} {:>8.4} {:>11.3}", e, n, sig(v.rmse, 3), v.q2, v.coverage95);
+        out!(
+            "  {:<16} {:>6} {:>12} {:>8.4} {:>11.3}",
+            e,
+            n,
+            sig(v.rmse, 3),
+            v.q2,
+            v.coverage95
+        );
     }
 }
 
@@ -183,7 +261,11 @@ fn report_runs(s: &assay::runs::RunSummary) {
         s.done,
         s.failed,
         s.skipped,
-        if s.interrupted > 0 { format!(", {} interrupted (pending)", s.interrupted) } else { String::new() }
+        if s.interrupted > 0 {
+            format!(", {} interrupted (pending)", s.interrupted)
+        } else {
+            String::new()
+        }
     );
 }
 
@@ -193,7 +275,9 @@ fn execute(cli: &Cli) -> Result<bool> {
     let obs = observer(cli.quiet);
     let stop = stop_flag();
     let (study_path, _) = match &cli.command {
-        Command::Validate(a) | Command::Status(a) | Command::Fit(a) | Command::Calibrate(a) => (&a.study, ()),
+        Command::Validate(a) | Command::Status(a) | Command::Fit(a) | Command::Calibrate(a) => {
+            (&a.study, ())
+        }
         Command::Design(a) => (&a.study.study, ()),
         Command::Run(a) | Command::All(a) => (&a.study.study, ()),
     };
@@ -207,8 +291,16 @@ fn execute(cli: &Cli) -> Result<bool> {
         }
         Command::Design(a) => {
             let (d, how) = campaign::write_design(&c, a.force)?;
-            let verb = if how == DesignOutcome::Kept { "kept (same settings)" } else { "written" };
-            out!("design: {} points {verb} — {}", d.points.len(), c.path(campaign::DESIGN_FILE).display());
+            let verb = if how == DesignOutcome::Kept {
+                "kept (same settings)"
+            } else {
+                "written"
+            };
+            out!(
+                "design: {} points {verb} — {}",
+                d.points.len(),
+                c.path(campaign::DESIGN_FILE).display()
+            );
         }
         Command::Run(a) => {
             let s = campaign::run_stage(&c, plan::jobs(a, &c.study), stop, obs.as_ref())?;
@@ -226,7 +318,11 @@ fn execute(cli: &Cli) -> Result<bool> {
         }
         Command::All(a) => {
             let (d, how) = campaign::write_design(&c, false)?;
-            let verb = if how == DesignOutcome::Kept { "kept" } else { "written" };
+            let verb = if how == DesignOutcome::Kept {
+                "kept"
+            } else {
+                "written"
+            };
             out!("design: {} points {verb}", d.points.len());
             let s = campaign::run_stage(&c, plan::jobs(a, &c.study), stop, obs.as_ref())?;
             report_runs(&s);
@@ -234,13 +330,19 @@ fn execute(cli: &Cli) -> Result<bool> {
             if stop.load(Ordering::SeqCst) {
                 anyhow::bail!("interrupted; run the same command again to continue");
             }
-            if campaign::is_stale(&c.path(campaign::SURROGATE_FILE), &campaign::fit_inputs(&c)?) {
+            if campaign::is_stale(
+                &c.path(campaign::SURROGATE_FILE),
+                &campaign::fit_inputs(&c)?,
+            ) {
                 let s = campaign::fit_stage(&c)?;
                 print_fit(&s);
             } else {
                 out!("surrogate: up to date");
             }
-            if campaign::is_stale(&c.path(campaign::POSTERIOR_FILE), &campaign::calibrate_inputs(&c)) {
+            if campaign::is_stale(
+                &c.path(campaign::POSTERIOR_FILE),
+                &campaign::calibrate_inputs(&c),
+            ) {
                 campaign::calibrate_stage(&c, stop, obs.as_ref())?;
             } else {
                 out!("posterior: up to date");
@@ -254,7 +356,9 @@ fn execute(cli: &Cli) -> Result<bool> {
 
 fn main() -> ExitCode {
     let cli = Cli::parse();
-    let flag = STOP.get_or_init(|| Arc::new(AtomicBool::new(false))).clone();
+    let flag = STOP
+        .get_or_init(|| Arc::new(AtomicBool::new(false)))
+        .clone();
     let _ = ctrlc::set_handler(move || {
         if flag.swap(true, Ordering::SeqCst) {
             // Second Ctrl-C: leave at once.
@@ -269,7 +373,9 @@ fn main() -> ExitCode {
             ExitCode::from(3)
         }
         Err(err) => {
-            let bad_input = err.chain().any(|e| e.is::<StudyErrors>() || e.is::<InputError>());
+            let bad_input = err
+                .chain()
+                .any(|e| e.is::<StudyErrors>() || e.is::<InputError>());
             if let Some(se) = err.chain().find_map(|e| e.downcast_ref::<StudyErrors>()) {
                 for e in &se.0 {
                     eprintln!("error: {e}");

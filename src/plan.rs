@@ -9,5 +9,9 @@ pub fn jobs(args: &RunArgs, study: &Study) -> usize {
     args.jobs
         .map(|j| j as usize)
         .or(study.jobs)
-        .unwrap_or_else(|| std::thread::available_parallelism().map(|n| n.get()).unwrap_or(1))
+        .unwrap_or_else(|| {
+            std::thread::available_parallelism()
+                .map(|n| n.get())
+                .unwrap_or(1)
+        })
 }

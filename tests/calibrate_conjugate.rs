@@ -4,7 +4,9 @@
 //! eqs. 2.141–2.142):
 //!   1/τn² = 1/τ0² + n/σ²,  μn = τn² (μ0/τ0² + n ȳ/σ²).
 
-use assay::calibrate::{sample, summarize, Emulator, ExperimentLikelihood, LogPosterior, SamplerParams};
+use assay::calibrate::{
+    sample, summarize, Emulator, ExperimentLikelihood, LogPosterior, SamplerParams,
+};
 use assay::progress::Silent;
 use assay::study::{Parameter, Prior};
 use std::sync::atomic::AtomicBool;
@@ -31,18 +33,44 @@ fn check(mu0: f64, tau0: f64, sigma: f64, ys: &[f64], seed: u64) {
     let tau_n = tau_n2.sqrt();
 
     // A range of ±30 prior sds: the truncation removes no measurable mass.
-    let p = Parameter { name: "theta".into(), unit: None, lo: mu0 - 30.0 * tau0, hi: mu0 + 30.0 * tau0, prior: Prior::Normal { mean: mu0, sd: tau0 } };
+    let p = Parameter {
+        name: "theta".into(),
+        unit: None,
+        lo: mu0 - 30.0 * tau0,
+        hi: mu0 + 30.0 * tau0,
+        prior: Prior::Normal {
+            mean: mu0,
+            sd: tau0,
+        },
+    };
     let lik = ExperimentLikelihood::from_values("e", &[ys.to_vec()], &[vec![sigma; ys.len()]]);
     let em = Identity;
     let post = LogPosterior::new(vec![p], vec![(&em as &dyn Emulator, lik)]);
-    let params = SamplerParams { chains: 4, warmup: 2000, draws: 5000, seed };
+    let params = SamplerParams {
+        chains: 4,
+        warmup: 2000,
+        draws: 5000,
+        seed,
+    };
     let chains = sample(&post, &params, &AtomicBool::new(false), &Silent);
     let s = summarize(&["theta".into()], &chains);
     let ps = s.parameters[0];
     let mcse = ps.sd / s.diagnostics[0].ess_bulk.sqrt();
-    assert!((ps.mean - mu_n).abs() < MEAN_N_MCSE * mcse, "mean {} vs exact {mu_n} (MCSE {mcse})", ps.mean);
-    assert!((ps.sd - tau_n).abs() / tau_n < SD_RTOL, "sd {} vs exact {tau_n}", ps.sd);
-    assert!(s.diagnostics[0].rhat < 1.01, "rhat {}", s.diagnostics[0].rhat);
+    assert!(
+        (ps.mean - mu_n).abs() < MEAN_N_MCSE * mcse,
+        "mean {} vs exact {mu_n} (MCSE {mcse})",
+        ps.mean
+    );
+    assert!(
+        (ps.sd - tau_n).abs() / tau_n < SD_RTOL,
+        "sd {} vs exact {tau_n}",
+        ps.sd
+    );
+    assert!(
+        s.diagnostics[0].rhat < 1.01,
+        "rhat {}",
+        s.diagnostics[0].rhat
+    );
     // Posterior variance ≤ prior variance in the conjugate case.
     assert!(ps.sd < tau0);
 }
@@ -55,6 +83,8 @@ fn normal_mean_with_known_variance_weak_data() {
 #[test]
 fn normal_mean_with_known_variance_strong_data() {
     // Posterior much narrower than the prior: tests the proposal tuning too.
-    let ys: Vec<f64> = (0..50).map(|i| 3.0 + 0.1 * ((i * 37 % 11) as f64 - 5.0)).collect();
+    let ys: Vec<f64> = (0..50)
+        .map(|i| 3.0 + 0.1 * ((i * 37 % 11) as f64 - 5.0))
+        .collect();
     check(0.0, 10.0, 0.5, &ys, 17);
 }

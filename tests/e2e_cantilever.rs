@@ -42,13 +42,24 @@ fn ensure_simulator() {
     let bin = root().join("target/release/cantilever");
     if !bin.exists() {
         let cargo = std::env::var("CARGO").unwrap_or_else(|_| "cargo".into());
-        let st = Command::new(cargo).args(["build", "--release", "-p", "cantilever"]).current_dir(root()).status().unwrap();
+        let st = Command::new(cargo)
+            .args(["build", "--release", "-p", "cantilever"])
+            .current_dir(root())
+            .status()
+            .unwrap();
         assert!(st.success(), "building the cantilever simulator failed");
     }
 }
 
 fn assay(runs: &Path, args: &[&str]) -> std::process::Output {
-    Command::new(env!("CARGO_BIN_EXE_assay")).arg("--runs").arg(runs).arg("--quiet").args(args).current_dir(root()).output().unwrap()
+    Command::new(env!("CARGO_BIN_EXE_assay"))
+        .arg("--runs")
+        .arg(runs)
+        .arg("--quiet")
+        .args(args)
+        .current_dir(root())
+        .output()
+        .unwrap()
 }
 
 #[test]
@@ -57,15 +68,28 @@ fn calibration_recovers_the_invented_constants() {
     let tmp = tempfile::tempdir().unwrap();
     let out = assay(tmp.path(), &["all", "models/cantilever/study.yaml"]);
     let stdout = String::from_utf8_lossy(&out.stdout);
-    assert!(out.status.success(), "assay all failed:\n{stdout}\n{}", String::from_utf8_lossy(&out.stderr));
-    assert!(stdout.contains("posterior ("), "the posterior table is printed:\n{stdout}");
+    assert!(
+        out.status.success(),
+        "assay all failed:\n{stdout}\n{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    assert!(
+        stdout.contains("posterior ("),
+        "the posterior table is printed:\n{stdout}"
+    );
 
     let dir = tmp.path().join("cantilever");
     let text = std::fs::read_to_string(dir.join("posterior.yaml")).unwrap();
     let p: Posterior = serde_yaml::from_str(&text).unwrap();
     for (name, truth) in [("E", TRUE_E), ("k_theta", TRUE_K_THETA)] {
         let s = &p.parameters[name];
-        assert!(s.q025 < truth && truth < s.q975, "{name}: {truth} outside [{}, {}] (mean {})", s.q025, s.q975, s.mean);
+        assert!(
+            s.q025 < truth && truth < s.q975,
+            "{name}: {truth} outside [{}, {}] (mean {})",
+            s.q025,
+            s.q975,
+            s.mean
+        );
         let d = &p.diagnostics[name];
         assert!(d.rhat < RHAT_MAX, "{name}: rhat {}", d.rhat);
         assert!(d.ess_bulk > 400.0, "{name}: ess_bulk {}", d.ess_bulk);
@@ -73,13 +97,22 @@ fn calibration_recovers_the_invented_constants() {
     assert!(p.caution.contains("not a certified material allowable"));
 
     let samples = std::fs::read_to_string(dir.join("posterior-samples.csv")).unwrap();
-    assert_eq!(samples.lines().next().unwrap(), "chain,draw,E,k_theta,log_posterior");
+    assert_eq!(
+        samples.lines().next().unwrap(),
+        "chain,draw,E,k_theta,log_posterior"
+    );
     assert_eq!(samples.lines().count(), 1 + 4 * 4000);
 
     // A second `all` reuses every stage.
     let again = assay(tmp.path(), &["all", "models/cantilever/study.yaml"]);
     let s2 = String::from_utf8_lossy(&again.stdout);
     assert!(again.status.success());
-    assert!(s2.contains("0 done now") && s2.contains("60 already done"), "{s2}");
-    assert!(s2.contains("surrogate: up to date") && s2.contains("posterior: up to date"), "{s2}");
+    assert!(
+        s2.contains("0 done now") && s2.contains("60 already done"),
+        "{s2}"
+    );
+    assert!(
+        s2.contains("surrogate: up to date") && s2.contains("posterior: up to date"),
+        "{s2}"
+    );
 }

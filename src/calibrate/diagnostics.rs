@@ -21,7 +21,11 @@ pub struct Diagnostics {
 impl Diagnostics {
     /// Compute all three for `chains` (one vector of draws per chain).
     pub fn of(chains: &[Vec<f64>]) -> Self {
-        Self { rhat: rhat(chains), ess_bulk: ess_bulk(chains), ess_tail: ess_tail(chains) }
+        Self {
+            rhat: rhat(chains),
+            ess_bulk: ess_bulk(chains),
+            ess_tail: ess_tail(chains),
+        }
     }
 }
 
@@ -104,7 +108,10 @@ pub fn rhat(chains: &[Vec<f64>]) -> f64 {
     }
     let bulk = rhat_basic(&rank_normalize(&sp));
     let med = median(&sp);
-    let folded: Vec<Vec<f64>> = sp.iter().map(|c| c.iter().map(|v| (v - med).abs()).collect()).collect();
+    let folded: Vec<Vec<f64>> = sp
+        .iter()
+        .map(|c| c.iter().map(|v| (v - med).abs()).collect())
+        .collect();
     let tail = rhat_basic(&rank_normalize(&folded));
     bulk.max(tail)
 }
@@ -123,13 +130,21 @@ fn ess_raw(chains: &[Vec<f64>]) -> f64 {
     let acov = |c: usize, t: usize| -> f64 {
         let ch = &chains[c];
         let mu = means[c];
-        (0..n - t).map(|i| (ch[i] - mu) * (ch[i + t] - mu)).sum::<f64>() / nf
+        (0..n - t)
+            .map(|i| (ch[i] - mu) * (ch[i + t] - mu))
+            .sum::<f64>()
+            / nf
     };
     let acov0: Vec<f64> = (0..m).map(|c| acov(c, 0)).collect();
-    let w = mean(&acov0.iter().map(|a| a * nf / (nf - 1.0)).collect::<Vec<_>>());
+    let w = mean(
+        &acov0
+            .iter()
+            .map(|a| a * nf / (nf - 1.0))
+            .collect::<Vec<_>>(),
+    );
     let b_over_n = if m > 1 { var(&means) } else { 0.0 };
     let var_plus = w * (nf - 1.0) / nf + b_over_n;
-    if !(var_plus > 0.0) {
+    if var_plus.is_nan() || var_plus <= 0.0 {
         return f64::NAN;
     }
     let mean_acov = |t: usize| -> f64 { (0..m).map(|c| acov(c, t)).sum::<f64>() / m as f64 };
@@ -164,7 +179,11 @@ fn ess_raw(chains: &[Vec<f64>]) -> f64 {
         }
         k += 2;
     }
-    let head: f64 = if max_t >= 0 { rho[..=(max_t as usize)].iter().sum() } else { 0.0 };
+    let head: f64 = if max_t >= 0 {
+        rho[..=(max_t as usize)].iter().sum()
+    } else {
+        0.0
+    };
     let total = (m * n) as f64;
     let tau = (-1.0 + 2.0 * head + rho[(max_t + 1) as usize]).max(1.0 / total.log10());
     total / tau
@@ -190,7 +209,15 @@ pub fn ess_tail(chains: &[Vec<f64>]) -> f64 {
     all.sort_by(f64::total_cmp);
     let q = |p: f64| quantile_sorted(&all, p);
     let (q05, q95) = (q(0.05), q(0.95));
-    let ind = |thr: f64| -> Vec<Vec<f64>> { sp.iter().map(|c| c.iter().map(|v| if *v <= thr { 1.0 } else { 0.0 }).collect()).collect() };
+    let ind = |thr: f64| -> Vec<Vec<f64>> {
+        sp.iter()
+            .map(|c| {
+                c.iter()
+                    .map(|v| if *v <= thr { 1.0 } else { 0.0 })
+                    .collect()
+            })
+            .collect()
+    };
     ess_raw(&ind(q05)).min(ess_raw(&ind(q95)))
 }
 

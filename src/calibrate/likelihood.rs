@@ -60,18 +60,30 @@ impl ExperimentLikelihood {
                     .map(|s| match (&e.noise, s) {
                         (Noise::Sd(v), _) => *v,
                         (Noise::Column(_), Some(v)) => *v,
-                        (Noise::Column(_), None) => unreachable!("validation requires the sd column"),
+                        (Noise::Column(_), None) => {
+                            unreachable!("validation requires the sd column")
+                        }
                     })
                     .collect();
                 Self::group(&t.values, &sds)
             })
             .collect();
-        Self { name: e.name.clone(), groups }
+        Self {
+            name: e.name.clone(),
+            groups,
+        }
     }
 
     /// From plain values and sds per output value (tests, other stages).
     pub fn from_values(name: &str, values: &[Vec<f64>], sds: &[Vec<f64>]) -> Self {
-        Self { name: name.into(), groups: values.iter().zip(sds).map(|(v, s)| Self::group(v, s)).collect() }
+        Self {
+            name: name.into(),
+            groups: values
+                .iter()
+                .zip(sds)
+                .map(|(v, s)| Self::group(v, s))
+                .collect(),
+        }
     }
 
     fn group(values: &[f64], sds: &[f64]) -> Group {
@@ -80,9 +92,19 @@ impl ExperimentLikelihood {
         let ybar = values.iter().zip(&w).map(|(y, w)| y * w).sum::<f64>() / wsum;
         let v = 1.0 / wsum;
         let n = values.len() as f64;
-        let constant = -(n - 1.0) / 2.0 * LN_2PI - sds.iter().map(|s| s.ln()).sum::<f64>() + 0.5 * v.ln()
-            - 0.5 * values.iter().zip(&w).map(|(y, w)| w * (y - ybar).powi(2)).sum::<f64>();
-        Group { ybar, var_mean: v, constant }
+        let constant = -(n - 1.0) / 2.0 * LN_2PI - sds.iter().map(|s| s.ln()).sum::<f64>()
+            + 0.5 * v.ln()
+            - 0.5
+                * values
+                    .iter()
+                    .zip(&w)
+                    .map(|(y, w)| w * (y - ybar).powi(2))
+                    .sum::<f64>();
+        Group {
+            ybar,
+            var_mean: v,
+            constant,
+        }
     }
 
     /// Number of output values.
@@ -115,9 +137,12 @@ mod tests {
         // With s² = 0 the likelihood must equal ∏ N(y_r; μ, σ²) exactly.
         let ys = vec![1.0, 1.4, 0.7];
         let sd = 0.3;
-        let l = ExperimentLikelihood::from_values("t", &[ys.clone()], &[vec![sd; 3]]);
+        let l = ExperimentLikelihood::from_values("t", std::slice::from_ref(&ys), &[vec![sd; 3]]);
         let mu = 1.1;
-        let direct: f64 = ys.iter().map(|y| -0.5 * (LN_2PI + (sd * sd as f64).ln() + (y - mu).powi(2) / (sd * sd))).sum();
+        let direct: f64 = ys
+            .iter()
+            .map(|y| -0.5 * (LN_2PI + (sd * sd).ln() + (y - mu).powi(2) / (sd * sd)))
+            .sum();
         assert!((l.ln_likelihood(&[mu], &[0.0]) - direct).abs() < 1e-12);
     }
 }

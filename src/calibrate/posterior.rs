@@ -16,9 +16,20 @@ pub struct LogPosterior<'a> {
 }
 
 impl<'a> LogPosterior<'a> {
-    pub fn new(parameters: Vec<Parameter>, experiments: Vec<(&'a dyn Emulator, ExperimentLikelihood)>) -> Self {
-        let transforms = parameters.iter().map(|p| Transform { lo: p.lo, hi: p.hi }).collect();
-        Self { parameters, transforms, experiments, n_evaluations: AtomicU64::new(0) }
+    pub fn new(
+        parameters: Vec<Parameter>,
+        experiments: Vec<(&'a dyn Emulator, ExperimentLikelihood)>,
+    ) -> Self {
+        let transforms = parameters
+            .iter()
+            .map(|p| Transform { lo: p.lo, hi: p.hi })
+            .collect();
+        Self {
+            parameters,
+            transforms,
+            experiments,
+            n_evaluations: AtomicU64::new(0),
+        }
     }
 
     pub fn dim(&self) -> usize {
@@ -26,16 +37,27 @@ impl<'a> LogPosterior<'a> {
     }
 
     pub fn to_constrained(&self, z: &[f64]) -> Vec<f64> {
-        z.iter().zip(&self.transforms).map(|(z, t)| t.to_constrained(*z)).collect()
+        z.iter()
+            .zip(&self.transforms)
+            .map(|(z, t)| t.to_constrained(*z))
+            .collect()
     }
 
     pub fn to_unconstrained(&self, x: &[f64]) -> Vec<f64> {
-        x.iter().zip(&self.transforms).map(|(x, t)| t.to_unconstrained(*x)).collect()
+        x.iter()
+            .zip(&self.transforms)
+            .map(|(x, t)| t.to_unconstrained(*x))
+            .collect()
     }
 
     /// ln p(θ | y) in θ-space (no Jacobian): what records report.
     pub fn ln_posterior_theta(&self, theta: &[f64]) -> f64 {
-        let mut lp: f64 = self.parameters.iter().zip(theta).map(|(p, x)| ln_prior(p, *x)).sum();
+        let mut lp: f64 = self
+            .parameters
+            .iter()
+            .zip(theta)
+            .map(|(p, x)| ln_prior(p, *x))
+            .sum();
         if !lp.is_finite() {
             return lp;
         }
@@ -50,7 +72,11 @@ impl<'a> LogPosterior<'a> {
     pub fn ln_density(&self, z: &[f64]) -> f64 {
         self.n_evaluations.fetch_add(1, Ordering::Relaxed);
         let theta = self.to_constrained(z);
-        let jac: f64 = z.iter().zip(&self.transforms).map(|(z, t)| t.ln_jacobian(*z)).sum();
+        let jac: f64 = z
+            .iter()
+            .zip(&self.transforms)
+            .map(|(z, t)| t.ln_jacobian(*z))
+            .sum();
         self.ln_posterior_theta(&theta) + jac
     }
 }

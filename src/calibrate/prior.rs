@@ -58,7 +58,10 @@ mod tests {
 
     #[test]
     fn jacobian_matches_finite_difference() {
-        let t = Transform { lo: 150.0, hi: 250.0 };
+        let t = Transform {
+            lo: 150.0,
+            hi: 250.0,
+        };
         for z in [-8.0, -1.0, 0.0, 0.5, 6.0] {
             let h = 1e-6;
             let fd = (t.to_constrained(z + h) - t.to_constrained(z - h)) / (2.0 * h);

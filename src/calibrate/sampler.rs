@@ -74,7 +74,9 @@ fn initial_point<R: Rng + ?Sized>(post: &LogPosterior<'_>, rng: &mut R) -> Vec<f
                 let x = match p.prior {
                     Prior::Uniform => p.lo + (p.hi - p.lo) * rng.gen::<f64>(),
                     Prior::Normal { mean, sd } => mean + sd * rng.sample::<f64, _>(StandardNormal),
-                    Prior::LogNormal { mu, sigma } => (mu + sigma * rng.sample::<f64, _>(StandardNormal)).exp(),
+                    Prior::LogNormal { mu, sigma } => {
+                        (mu + sigma * rng.sample::<f64, _>(StandardNormal)).exp()
+                    }
                 };
                 // Stay off the boundary, where the logit map is singular.
                 let margin = 1e-6 * (p.hi - p.lo);
@@ -106,7 +108,13 @@ fn covariance(rows: &[Vec<f64>], d: usize) -> Array2<f64> {
     c
 }
 
-fn run_chain(post: &LogPosterior<'_>, params: &SamplerParams, index: usize, stop: &AtomicBool, observer: &dyn Observer) -> Chain {
+fn run_chain(
+    post: &LogPosterior<'_>,
+    params: &SamplerParams,
+    index: usize,
+    stop: &AtomicBool,
+    observer: &dyn Observer,
+) -> Chain {
     let d = post.dim();
     let mut rng = crate::rng::stream(params.seed, index as u64);
     let mut z = post.to_unconstrained(&initial_point(post, &mut rng));
@@ -133,10 +141,16 @@ fn run_chain(post: &LogPosterior<'_>, params: &SamplerParams, index: usize, stop
             *e = rng.sample(StandardNormal);
         }
         let scale = ln_scale.exp();
-        let proposal: Vec<f64> = (0..d).map(|a| z[a] + scale * (0..=a).map(|b| chol[[a, b]] * eps[b]).sum::<f64>()).collect();
+        let proposal: Vec<f64> = (0..d)
+            .map(|a| z[a] + scale * (0..=a).map(|b| chol[[a, b]] * eps[b]).sum::<f64>())
+            .collect();
         let lp_new = post.ln_density(&proposal);
         let ln_ratio = lp_new - lp;
-        let accept_prob = if ln_ratio.is_nan() { 0.0 } else { ln_ratio.min(0.0).exp() };
+        let accept_prob = if ln_ratio.is_nan() {
+            0.0
+        } else {
+            ln_ratio.min(0.0).exp()
+        };
         let u: f64 = rng.gen();
         let accept = u < accept_prob;
         if accept {
@@ -178,7 +192,11 @@ fn run_chain(post: &LogPosterior<'_>, params: &SamplerParams, index: usize, stop
                 accepted += 1;
             }
             let th = post.to_constrained(&z);
-            let jac: f64 = z.iter().zip(&post.transforms).map(|(z, tr)| tr.ln_jacobian(*z)).sum();
+            let jac: f64 = z
+                .iter()
+                .zip(&post.transforms)
+                .map(|(z, tr)| tr.ln_jacobian(*z))
+                .sum();
             ln_post.push(lp - jac);
             theta.push(th);
         }
@@ -187,15 +205,33 @@ fn run_chain(post: &LogPosterior<'_>, params: &SamplerParams, index: usize, stop
         }
     }
     let kept = theta.len().max(1);
-    Chain { index, theta, ln_posterior: ln_post, acceptance_rate: accepted as f64 / kept as f64, step_scale: ln_scale.exp(), termination }
+    Chain {
+        index,
+        theta,
+        ln_posterior: ln_post,
+        acceptance_rate: accepted as f64 / kept as f64,
+        step_scale: ln_scale.exp(),
+        termination,
+    }
 }
 
 /// Run `params.chains` chains in parallel. Chain i uses random stream i of `params.seed`,
 /// so the draws are the same whatever the number of threads.
-pub fn sample(post: &LogPosterior<'_>, params: &SamplerParams, stop: &AtomicBool, observer: &dyn Observer) -> Vec<Chain> {
+pub fn sample(
+    post: &LogPosterior<'_>,
+    params: &SamplerParams,
+    stop: &AtomicBool,
+    observer: &dyn Observer,
+) -> Vec<Chain> {
     crate::init_blas();
-    observer.start("MCMC", (params.chains * (params.warmup + params.draws)) as u64);
-    let chains = (0..params.chains).into_par_iter().map(|i| run_chain(post, params, i, stop, observer)).collect();
+    observer.start(
+        "MCMC",
+        (params.chains * (params.warmup + params.draws)) as u64,
+    );
+    let chains = (0..params.chains)
+        .into_par_iter()
+        .map(|i| run_chain(post, params, i, stop, observer))
+        .collect();
     observer.finish();
     chains
 }

@@ -50,7 +50,10 @@ pub fn summarize(names: &[String], chains: &[Chain]) -> PosteriorSummary {
     let mut warnings = Vec::new();
     let mut n_draws = 0;
     for j in 0..d {
-        let per_chain: Vec<Vec<f64>> = chains.iter().map(|c| c.theta.iter().map(|t| t[j]).collect()).collect();
+        let per_chain: Vec<Vec<f64>> = chains
+            .iter()
+            .map(|c| c.theta.iter().map(|t| t[j]).collect())
+            .collect();
         let mut all: Vec<f64> = per_chain.iter().flatten().copied().collect();
         n_draws = all.len();
         let n = all.len() as f64;
@@ -78,10 +81,19 @@ pub fn summarize(names: &[String], chains: &[Chain]) -> PosteriorSummary {
         }
         diagnostics.push(diag);
     }
-    if chains.iter().any(|c| c.termination == Termination::Interrupted) {
+    if chains
+        .iter()
+        .any(|c| c.termination == Termination::Interrupted)
+    {
         warnings.push("sampling was interrupted: the summaries use the draws made so far".into());
     }
-    PosteriorSummary { names: names.to_vec(), parameters, diagnostics, n_draws, warnings }
+    PosteriorSummary {
+        names: names.to_vec(),
+        parameters,
+        diagnostics,
+        n_draws,
+        warnings,
+    }
 }
 
 /// One chain's bookkeeping in the record.
@@ -127,21 +139,43 @@ It is not a certified material allowable or design value. Use it only together w
 and the judgement of a licensed engineer.";
 
 impl PosteriorBody {
-    pub fn new(s: &PosteriorSummary, chains: &[Chain], params: &SamplerParams, n_evaluations: u64) -> Self {
+    pub fn new(
+        s: &PosteriorSummary,
+        chains: &[Chain],
+        params: &SamplerParams,
+        n_evaluations: u64,
+    ) -> Self {
         Self {
-            parameters: s.names.iter().cloned().zip(s.parameters.iter().copied()).collect(),
-            diagnostics: s.names.iter().cloned().zip(s.diagnostics.iter().copied()).collect(),
+            parameters: s
+                .names
+                .iter()
+                .cloned()
+                .zip(s.parameters.iter().copied())
+                .collect(),
+            diagnostics: s
+                .names
+                .iter()
+                .cloned()
+                .zip(s.diagnostics.iter().copied())
+                .collect(),
             settings: SettingsWire {
                 sampler: "random-walk Metropolis, proposal tuned in warm-up".into(),
                 chains: params.chains,
                 warmup: params.warmup,
                 draws: params.draws,
                 seed: params.seed,
-                likelihood: "Gaussian: known measurement noise plus surrogate predictive variance".into(),
+                likelihood: "Gaussian: known measurement noise plus surrogate predictive variance"
+                    .into(),
             },
             chains: chains
                 .iter()
-                .map(|c| ChainWire { index: c.index, draws: c.theta.len(), acceptance_rate: c.acceptance_rate, step_scale: c.step_scale, termination: c.termination })
+                .map(|c| ChainWire {
+                    index: c.index,
+                    draws: c.theta.len(),
+                    acceptance_rate: c.acceptance_rate,
+                    step_scale: c.step_scale,
+                    termination: c.termination,
+                })
                 .collect(),
             n_draws: s.n_draws,
             n_evaluations,

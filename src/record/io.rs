@@ -29,16 +29,26 @@ pub fn sha256_file(path: &Path) -> std::io::Result<String> {
 /// Write `bytes` to `path` atomically: a temporary file in the same folder, flushed to
 /// disk, then renamed over `path`, so a reader never sees half a file.
 pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<()> {
-    let dir = path.parent().filter(|p| !p.as_os_str().is_empty()).unwrap_or(Path::new("."));
-    std::fs::create_dir_all(dir).with_context(|| format!("cannot create folder {}", dir.display()))?;
-    let name = path.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
+    let dir = path
+        .parent()
+        .filter(|p| !p.as_os_str().is_empty())
+        .unwrap_or(Path::new("."));
+    std::fs::create_dir_all(dir)
+        .with_context(|| format!("cannot create folder {}", dir.display()))?;
+    let name = path
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_default();
     let tmp = dir.join(format!(".{name}.tmp-{}", std::process::id()));
     {
-        let mut f = std::fs::File::create(&tmp).with_context(|| format!("cannot create {}", tmp.display()))?;
-        f.write_all(bytes).with_context(|| format!("cannot write {}", tmp.display()))?;
+        let mut f = std::fs::File::create(&tmp)
+            .with_context(|| format!("cannot create {}", tmp.display()))?;
+        f.write_all(bytes)
+            .with_context(|| format!("cannot write {}", tmp.display()))?;
         f.sync_all().ok();
     }
-    std::fs::rename(&tmp, path).with_context(|| format!("cannot move {} to {}", tmp.display(), path.display()))?;
+    std::fs::rename(&tmp, path)
+        .with_context(|| format!("cannot move {} to {}", tmp.display(), path.display()))?;
     Ok(())
 }
 
@@ -50,7 +60,8 @@ pub fn write_record<T: Serialize>(path: &Path, record: &Record<T>) -> Result<()>
 
 /// Read a record written by [`write_record`].
 pub fn read_record<T: DeserializeOwned>(path: &Path) -> Result<Record<T>> {
-    let text = std::fs::read_to_string(path).with_context(|| format!("cannot read {}", path.display()))?;
+    let text =
+        std::fs::read_to_string(path).with_context(|| format!("cannot read {}", path.display()))?;
     serde_yaml::from_str(&text).with_context(|| format!("{} is not a valid record", path.display()))
 }
 

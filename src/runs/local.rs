@@ -85,7 +85,10 @@ pub fn run_all(
                         continue;
                     }
                     RunState::Running if !owner_is_gone(&rec.body) => {
-                        observer.note(&format!("{}/{} is running in another assay process; left alone", p.id, e.name));
+                        observer.note(&format!(
+                            "{}/{} is running in another assay process; left alone",
+                            p.id, e.name
+                        ));
                         continue;
                     }
                     _ => Some(rec.body),
@@ -107,14 +110,21 @@ pub fn run_all(
                     break;
                 }
                 let i = next.fetch_add(1, Ordering::SeqCst);
-                let Some((p, e, prev)) = todo.get(i) else { break };
+                let Some((p, e, prev)) = todo.get(i) else {
+                    break;
+                };
                 let r = run_one(study, p, e, prev.clone(), campaign, command_line, stop);
                 let label = format!("{}/{}", p.id, e.name);
                 match &r {
                     Ok(RunState::Done) => observer.advance(1, &format!("{label} done")),
-                    Ok(RunState::Pending) => observer.note(&format!("{label} interrupted; back to pending")),
+                    Ok(RunState::Pending) => {
+                        observer.note(&format!("{label} interrupted; back to pending"))
+                    }
                     Ok(_) => {
-                        observer.note(&format!("{label} failed (see {})", run_record_path(campaign, &p.id, &e.name).display()));
+                        observer.note(&format!(
+                            "{label} failed (see {})",
+                            run_record_path(campaign, &p.id, &e.name).display()
+                        ));
                         observer.advance(1, &format!("{label} failed"));
                     }
                     Err(err) => {
@@ -214,7 +224,10 @@ fn run_one(
         body.owner_host = Some(gethostname::gethostname().to_string_lossy().into_owned());
         body.values = None;
         body.outputs_sha256 = None;
-        write_record(&record_path, &Record::new("run", clock_snapshot(&command_line), body.clone()))?;
+        write_record(
+            &record_path,
+            &Record::new("run", clock_snapshot(command_line), body.clone()),
+        )?;
 
         let started = now();
         let t0 = Instant::now();
@@ -229,8 +242,16 @@ fn run_one(
                 body.state = RunState::Pending;
                 body.attempts -= 1;
                 body.reason = Some("interrupted by the user; will run again".into());
-                body.history.push(Attempt { started_utc: started, elapsed_s: elapsed, exit_code, reason: body.reason.clone() });
-                write_record(&record_path, &Record::new("run", clock.finish(), body.clone()))?;
+                body.history.push(Attempt {
+                    started_utc: started,
+                    elapsed_s: elapsed,
+                    exit_code,
+                    reason: body.reason.clone(),
+                });
+                write_record(
+                    &record_path,
+                    &Record::new("run", clock.finish(), body.clone()),
+                )?;
                 return Ok(RunState::Pending);
             }
             Outcome::Done(vals, sha) => {
@@ -238,16 +259,32 @@ fn run_one(
                 body.reason = None;
                 body.values = Some(vals);
                 body.outputs_sha256 = Some(sha.clone());
-                body.history.push(Attempt { started_utc: started, elapsed_s: elapsed, exit_code, reason: None });
+                body.history.push(Attempt {
+                    started_utc: started,
+                    elapsed_s: elapsed,
+                    exit_code,
+                    reason: None,
+                });
                 clock.input_hash(&study.simulator.output.file, &sha);
-                write_record(&record_path, &Record::new("run", clock.finish(), body.clone()))?;
+                write_record(
+                    &record_path,
+                    &Record::new("run", clock.finish(), body.clone()),
+                )?;
                 return Ok(RunState::Done);
             }
             Outcome::Failed(reason) => {
                 body.state = RunState::Failed;
                 body.reason = Some(reason.clone());
-                body.history.push(Attempt { started_utc: started, elapsed_s: elapsed, exit_code, reason: Some(reason) });
-                write_record(&record_path, &Record::new("run", clock.finish(), body.clone()))?;
+                body.history.push(Attempt {
+                    started_utc: started,
+                    elapsed_s: elapsed,
+                    exit_code,
+                    reason: Some(reason),
+                });
+                write_record(
+                    &record_path,
+                    &Record::new("run", clock.finish(), body.clone()),
+                )?;
             }
         }
     }
@@ -269,18 +306,34 @@ enum Outcome {
 }
 
 /// One attempt: start, wait with timeout (or interruption), parse.
-fn attempt(study: &Study, e: &Experiment, argv: &[String], dir: &Path, stop: &AtomicBool) -> (Option<i32>, Outcome) {
+fn attempt(
+    study: &Study,
+    e: &Experiment,
+    argv: &[String],
+    dir: &Path,
+    stop: &AtomicBool,
+) -> (Option<i32>, Outcome) {
     let sim = &study.simulator;
     let out_path = dir.join(&sim.output.file);
     // A stale output from an earlier attempt must not be mistaken for this one's.
     let _ = std::fs::remove_file(&out_path);
     let stdout = match std::fs::File::create(dir.join("stdout.txt")) {
         Ok(f) => f,
-        Err(err) => return (None, Outcome::Failed(format!("cannot create stdout.txt: {err}"))),
+        Err(err) => {
+            return (
+                None,
+                Outcome::Failed(format!("cannot create stdout.txt: {err}")),
+            )
+        }
     };
     let stderr = match std::fs::File::create(dir.join("stderr.txt")) {
         Ok(f) => f,
-        Err(err) => return (None, Outcome::Failed(format!("cannot create stderr.txt: {err}"))),
+        Err(err) => {
+            return (
+                None,
+                Outcome::Failed(format!("cannot create stderr.txt: {err}")),
+            )
+        }
     };
     let prog = program(study, &argv[0]);
     let mut child = match Command::new(&prog)
@@ -293,7 +346,12 @@ fn attempt(study: &Study, e: &Experiment, argv: &[String], dir: &Path, stop: &At
         .spawn()
     {
         Ok(c) => c,
-        Err(err) => return (None, Outcome::Failed(format!("cannot start `{}`: {err}", prog.display()))),
+        Err(err) => {
+            return (
+                None,
+                Outcome::Failed(format!("cannot start `{}`: {err}", prog.display())),
+            )
+        }
     };
     let deadline = Instant::now() + Duration::from_secs_f64(sim.timeout_s);
     let mut pause = Duration::from_millis(2);
@@ -301,7 +359,12 @@ fn attempt(study: &Study, e: &Experiment, argv: &[String], dir: &Path, stop: &At
         match child.try_wait() {
             Ok(Some(st)) => break st,
             Ok(None) => {}
-            Err(err) => return (None, Outcome::Failed(format!("cannot wait for the simulator: {err}"))),
+            Err(err) => {
+                return (
+                    None,
+                    Outcome::Failed(format!("cannot wait for the simulator: {err}")),
+                )
+            }
         }
         if stop.load(Ordering::SeqCst) {
             let pgid = nix::unistd::Pid::from_raw(child.id() as i32);
@@ -314,7 +377,13 @@ fn attempt(study: &Study, e: &Experiment, argv: &[String], dir: &Path, stop: &At
             let pgid = nix::unistd::Pid::from_raw(child.id() as i32);
             let _ = nix::sys::signal::killpg(pgid, nix::sys::signal::Signal::SIGKILL);
             let _ = child.wait();
-            return (None, Outcome::Failed(format!("timed out after {} s (simulator.timeout_s); process group killed", sim.timeout_s)));
+            return (
+                None,
+                Outcome::Failed(format!(
+                    "timed out after {} s (simulator.timeout_s); process group killed",
+                    sim.timeout_s
+                )),
+            );
         }
         std::thread::sleep(pause);
         pause = (pause * 2).min(Duration::from_millis(100));
@@ -322,27 +391,68 @@ fn attempt(study: &Study, e: &Experiment, argv: &[String], dir: &Path, stop: &At
     let code = status.code();
     if !status.success() {
         let tail = std::fs::read_to_string(dir.join("stderr.txt")).unwrap_or_default();
-        let tail: String = tail.lines().rev().take(3).collect::<Vec<_>>().into_iter().rev().collect::<Vec<_>>().join(" | ");
+        let tail: String = tail
+            .lines()
+            .rev()
+            .take(3)
+            .collect::<Vec<_>>()
+            .into_iter()
+            .rev()
+            .collect::<Vec<_>>()
+            .join(" | ");
         let why = match code {
             Some(c) => format!("exit code {c}"),
             None => "killed by a signal".to_string(),
         };
-        return (code, Outcome::Failed(if tail.is_empty() { why } else { format!("{why}; stderr: {tail}") }));
+        return (
+            code,
+            Outcome::Failed(if tail.is_empty() {
+                why
+            } else {
+                format!("{why}; stderr: {tail}")
+            }),
+        );
     }
     let text = match std::fs::read_to_string(&out_path) {
         Ok(t) => t,
-        Err(err) => return (code, Outcome::Failed(format!("output file `{}` not readable: {err}", sim.output.file))),
+        Err(err) => {
+            return (
+                code,
+                Outcome::Failed(format!(
+                    "output file `{}` not readable: {err}",
+                    sim.output.file
+                )),
+            )
+        }
     };
-    let parsed = match parse_output(&text, sim.output.format, sim.output.x.as_deref(), &sim.output.y) {
+    let parsed = match parse_output(
+        &text,
+        sim.output.format,
+        sim.output.x.as_deref(),
+        &sim.output.y,
+    ) {
         Ok(p) => p,
-        Err(m) => return (code, Outcome::Failed(format!("output file `{}`: {m}", sim.output.file))),
+        Err(m) => {
+            return (
+                code,
+                Outcome::Failed(format!("output file `{}`: {m}", sim.output.file)),
+            )
+        }
     };
     let values = match match_stations(&parsed, &e.data.stations()) {
         Ok(v) => v,
-        Err(m) => return (code, Outcome::Failed(format!("output file `{}`: {m}", sim.output.file))),
+        Err(m) => {
+            return (
+                code,
+                Outcome::Failed(format!("output file `{}`: {m}", sim.output.file)),
+            )
+        }
     };
     match sha256_file(&out_path) {
         Ok(h) => (code, Outcome::Done(values, h)),
-        Err(err) => (code, Outcome::Failed(format!("cannot hash the output: {err}"))),
+        Err(err) => (
+            code,
+            Outcome::Failed(format!("cannot hash the output: {err}")),
+        ),
     }
 }

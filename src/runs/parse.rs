@@ -21,27 +21,36 @@ pub struct Parsed {
 /// # Errors
 /// A message naming what is missing or wrong: no such column or key, a value that is
 /// not a finite number, an empty file, columns of different lengths.
-pub fn parse_output(text: &str, format: OutputFormat, x: Option<&str>, y: &[String]) -> Result<Parsed, String> {
+pub fn parse_output(
+    text: &str,
+    format: OutputFormat,
+    x: Option<&str>,
+    y: &[String],
+) -> Result<Parsed, String> {
     if text.trim().is_empty() {
         return Err("the output file is empty".into());
     }
     let parsed = match format {
         OutputFormat::Csv => parse_csv(text, x, y)?,
         OutputFormat::Yaml => {
-            let v: serde_json::Value =
-                serde_yaml::from_str(text).map_err(|e| format!("the output is not valid YAML: {e}"))?;
+            let v: serde_json::Value = serde_yaml::from_str(text)
+                .map_err(|e| format!("the output is not valid YAML: {e}"))?;
             parse_tree(&v, x, y)?
         }
         OutputFormat::Json => {
-            let v: serde_json::Value =
-                serde_json::from_str(text).map_err(|e| format!("the output is not valid JSON: {e}"))?;
+            let v: serde_json::Value = serde_json::from_str(text)
+                .map_err(|e| format!("the output is not valid JSON: {e}"))?;
             parse_tree(&v, x, y)?
         }
     };
     let n = parsed.x.as_ref().map(Vec::len).unwrap_or(1);
     for (q, col) in y.iter().zip(&parsed.y) {
         if col.len() != n {
-            return Err(format!("`{q}` has {} values but {} were expected", col.len(), n));
+            return Err(format!(
+                "`{q}` has {} values but {} were expected",
+                col.len(),
+                n
+            ));
         }
     }
     Ok(parsed)
@@ -56,11 +65,19 @@ fn finite(v: f64, what: &str) -> Result<f64, String> {
 }
 
 fn parse_csv(text: &str, x: Option<&str>, y: &[String]) -> Result<Parsed, String> {
-    let mut r = csv::ReaderBuilder::new().trim(csv::Trim::All).from_reader(text.as_bytes());
-    let headers = r.headers().map_err(|e| format!("cannot read the CSV header: {e}"))?.clone();
+    let mut r = csv::ReaderBuilder::new()
+        .trim(csv::Trim::All)
+        .from_reader(text.as_bytes());
+    let headers = r
+        .headers()
+        .map_err(|e| format!("cannot read the CSV header: {e}"))?
+        .clone();
     let col = |name: &str| {
         headers.iter().position(|h| h == name).ok_or_else(|| {
-            format!("no column `{name}` in the output (columns: {})", headers.iter().collect::<Vec<_>>().join(", "))
+            format!(
+                "no column `{name}` in the output (columns: {})",
+                headers.iter().collect::<Vec<_>>().join(", ")
+            )
         })
     };
     let xi = x.map(col).transpose()?;
@@ -72,7 +89,9 @@ fn parse_csv(text: &str, x: Option<&str>, y: &[String]) -> Result<Parsed, String
         let rec = rec.map_err(|e| format!("line {line}: malformed CSV row: {e}"))?;
         let num = |i: usize, name: &str| -> Result<f64, String> {
             let s = rec.get(i).unwrap_or("");
-            let v: f64 = s.parse().map_err(|_| format!("line {line}: `{s}` in column `{name}` is not a number"))?;
+            let v: f64 = s
+                .parse()
+                .map_err(|_| format!("line {line}: `{s}` in column `{name}` is not a number"))?;
             finite(v, &format!("line {line}: column `{name}`"))
         };
         if let (Some(i), Some(n)) = (xi, x) {
@@ -86,17 +105,27 @@ fn parse_csv(text: &str, x: Option<&str>, y: &[String]) -> Result<Parsed, String
         return Err("the output has a header but no data rows".into());
     }
     if x.is_none() && ys[0].len() != 1 {
-        return Err(format!("a scalar output needs exactly one data row, found {}", ys[0].len()));
+        return Err(format!(
+            "a scalar output needs exactly one data row, found {}",
+            ys[0].len()
+        ));
     }
-    Ok(Parsed { x: x.map(|_| xs), y: ys })
+    Ok(Parsed {
+        x: x.map(|_| xs),
+        y: ys,
+    })
 }
 
 fn numbers(v: &serde_json::Value, name: &str) -> Result<Vec<f64>, String> {
     let one = |v: &serde_json::Value| -> Result<f64, String> {
         match v {
-            serde_json::Value::Number(n) => finite(n.as_f64().unwrap_or(f64::NAN), &format!("`{name}`")),
+            serde_json::Value::Number(n) => {
+                finite(n.as_f64().unwrap_or(f64::NAN), &format!("`{name}`"))
+            }
             serde_json::Value::String(s) => {
-                let x: f64 = s.parse().map_err(|_| format!("`{name}`: `{s}` is not a number"))?;
+                let x: f64 = s
+                    .parse()
+                    .map_err(|_| format!("`{name}`: `{s}` is not a number"))?;
                 finite(x, &format!("`{name}`"))
             }
             other => Err(format!("`{name}`: {other} is not a number")),
@@ -109,10 +138,18 @@ fn numbers(v: &serde_json::Value, name: &str) -> Result<Vec<f64>, String> {
 }
 
 fn parse_tree(v: &serde_json::Value, x: Option<&str>, y: &[String]) -> Result<Parsed, String> {
-    let map = v.as_object().ok_or("the output must be a mapping of names to numbers or lists")?;
-    let get = |name: &str| map.get(name).ok_or_else(|| format!("no key `{name}` in the output"));
+    let map = v
+        .as_object()
+        .ok_or("the output must be a mapping of names to numbers or lists")?;
+    let get = |name: &str| {
+        map.get(name)
+            .ok_or_else(|| format!("no key `{name}` in the output"))
+    };
     let xs = x.map(|n| get(n).and_then(|v| numbers(v, n))).transpose()?;
-    let ys = y.iter().map(|n| get(n).and_then(|v| numbers(v, n))).collect::<Result<Vec<_>, _>>()?;
+    let ys = y
+        .iter()
+        .map(|n| get(n).and_then(|v| numbers(v, n)))
+        .collect::<Result<Vec<_>, _>>()?;
     Ok(Parsed { x: xs, y: ys })
 }
 
@@ -146,9 +183,14 @@ pub fn match_stations(parsed: &Parsed, stations: &[Option<f64>]) -> Result<Vec<f
                         continue;
                     }
                     if !(t > lo && t < hi) {
-                        return Err(format!("field x = {t} is outside the simulated range [{lo}, {hi}]"));
+                        return Err(format!(
+                            "field x = {t} is outside the simulated range [{lo}, {hi}]"
+                        ));
                     }
-                    let j = order.iter().position(|&k| xs[k] > t).expect("t is inside the range");
+                    let j = order
+                        .iter()
+                        .position(|&k| xs[k] > t)
+                        .expect("t is inside the range");
                     let (a, b) = (order[j - 1], order[j]);
                     let w = (t - xs[a]) / (xs[b] - xs[a]);
                     out.push(col[a] + w * (col[b] - col[a]));
@@ -169,7 +211,13 @@ mod tests {
 
     #[test]
     fn csv_curve_exact_and_interpolated() {
-        let p = parse_output("x,y\n0,0\n1,10\n2,20\n", OutputFormat::Csv, Some("x"), &names(&["y"])).unwrap();
+        let p = parse_output(
+            "x,y\n0,0\n1,10\n2,20\n",
+            OutputFormat::Csv,
+            Some("x"),
+            &names(&["y"]),
+        )
+        .unwrap();
         let v = match_stations(&p, &[Some(1.0), Some(1.5)]).unwrap();
         assert_eq!(v, vec![10.0, 15.0]);
         let e = match_stations(&p, &[Some(3.0)]).unwrap_err();
@@ -178,9 +226,11 @@ mod tests {
 
     #[test]
     fn non_finite_and_missing_are_errors() {
-        let e = parse_output("x,y\n0,NaN\n", OutputFormat::Csv, Some("x"), &names(&["y"])).unwrap_err();
+        let e =
+            parse_output("x,y\n0,NaN\n", OutputFormat::Csv, Some("x"), &names(&["y"])).unwrap_err();
         assert!(e.contains("not a finite number"), "{e}");
-        let e = parse_output("x,z\n0,1\n", OutputFormat::Csv, Some("x"), &names(&["y"])).unwrap_err();
+        let e =
+            parse_output("x,z\n0,1\n", OutputFormat::Csv, Some("x"), &names(&["y"])).unwrap_err();
         assert!(e.contains("no column `y`"), "{e}");
         assert!(parse_output("", OutputFormat::Csv, None, &names(&["y"])).is_err());
     }
@@ -189,7 +239,13 @@ mod tests {
     fn yaml_and_json_scalars_and_curves() {
         let p = parse_output("y: 2.5\n", OutputFormat::Yaml, None, &names(&["y"])).unwrap();
         assert_eq!(p.y, vec![vec![2.5]]);
-        let p = parse_output(r#"{"x": [1, 2], "y": [3, 4]}"#, OutputFormat::Json, Some("x"), &names(&["y"])).unwrap();
+        let p = parse_output(
+            r#"{"x": [1, 2], "y": [3, 4]}"#,
+            OutputFormat::Json,
+            Some("x"),
+            &names(&["y"]),
+        )
+        .unwrap();
         assert_eq!(match_stations(&p, &[Some(2.0)]).unwrap(), vec![4.0]);
     }
 }

@@ -91,7 +91,11 @@ pub struct RunSet {
 ///
 /// # Errors
 /// An unreadable or malformed `run.yaml`.
-pub fn load_runs(study: &Study, design: &Design, campaign: &Path) -> Result<(RunSet, Vec<RunBody>)> {
+pub fn load_runs(
+    study: &Study,
+    design: &Design,
+    campaign: &Path,
+) -> Result<(RunSet, Vec<RunBody>)> {
     let mut all = Vec::new();
     let mut experiments = Vec::new();
     for e in &study.experiments {
@@ -135,7 +139,11 @@ pub struct StateCounts {
 }
 
 /// Counts per experiment (records not yet written count as pending).
-pub fn status_counts(study: &Study, design: &Design, runs: &[RunBody]) -> BTreeMap<String, StateCounts> {
+pub fn status_counts(
+    study: &Study,
+    design: &Design,
+    runs: &[RunBody],
+) -> BTreeMap<String, StateCounts> {
     let mut out = BTreeMap::new();
     for e in &study.experiments {
         let mut c = StateCounts::default();

@@ -20,6 +20,6 @@ pub use error::{StudyError, StudyErrors};
 pub use locate::LineIndex;
 pub use validate::{
     load, parse, CalibrationParams, DesignMethod, DesignParams, Experiment, FileTemplate,
-    KernelChoice, MeanChoice, Noise, OutputFormat,
-    OutputSpec, Parameter, Prior, Simulator, Study, SurrogateParams,
+    KernelChoice, MeanChoice, Noise, OutputFormat, OutputSpec, Parameter, Prior, Simulator, Study,
+    SurrogateParams,
 };

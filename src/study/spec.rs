@@ -212,7 +212,11 @@ pub struct SurrogateSpec {
 
 impl Default for SurrogateSpec {
     fn default() -> Self {
-        Self { kernel: KernelChoice::default(), mean: MeanChoice::default(), seed: default_seed() }
+        Self {
+            kernel: KernelChoice::default(),
+            mean: MeanChoice::default(),
+            seed: default_seed(),
+        }
     }
 }
 
@@ -280,11 +284,19 @@ fn one_key(v: Value, what: &str, expected: &str) -> Result<(String, Value), Stri
             let (k, v) = m.into_iter().next().expect("one entry");
             match k {
                 Value::String(k) => Ok((k, v)),
-                other => Err(format!("{what}: key {other:?} is not a name; expected {expected}")),
+                other => Err(format!(
+                    "{what}: key {other:?} is not a name; expected {expected}"
+                )),
             }
         }
-        Value::Mapping(m) => Err(format!("{what}: expected exactly one of {expected}, found {} keys", m.len())),
-        other => Err(format!("{what}: expected {expected}, found {}", kind(&other))),
+        Value::Mapping(m) => Err(format!(
+            "{what}: expected exactly one of {expected}, found {} keys",
+            m.len()
+        )),
+        other => Err(format!(
+            "{what}: expected {expected}, found {}",
+            kind(&other)
+        )),
     }
 }
 
@@ -322,7 +334,12 @@ struct UnknownWire {
 }
 
 fn sub<T: serde::de::DeserializeOwned>(v: Value, key: &str) -> Result<T, String> {
-    serde_yaml::from_value(v).map_err(|e| format!("{key}: {}", e.to_string().replace("unknown field", "unknown key")))
+    serde_yaml::from_value(v).map_err(|e| {
+        format!(
+            "{key}: {}",
+            e.to_string().replace("unknown field", "unknown key")
+        )
+    })
 }
 
 impl<'de> Deserialize<'de> for PriorSpec {
@@ -332,13 +349,21 @@ impl<'de> Deserialize<'de> for PriorSpec {
         if let Value::String(s) = &v {
             return match s.as_str() {
                 "uniform" => Ok(PriorSpec::Uniform),
-                other => Err(D::Error::custom(format!("unknown prior `{other}`; expected {EXPECTED}"))),
+                other => Err(D::Error::custom(format!(
+                    "unknown prior `{other}`; expected {EXPECTED}"
+                ))),
             };
         }
         let (k, inner) = one_key(v, "prior", EXPECTED).map_err(D::Error::custom)?;
         match k.as_str() {
-            "normal" => sub::<NormalWire>(inner, "normal").map(|w| PriorSpec::Normal { mean: w.mean, sd: w.sd }),
-            "lognormal" => sub::<LognormalWire>(inner, "lognormal").map(|w| PriorSpec::Lognormal { mu: w.mu, sigma: w.sigma }),
+            "normal" => sub::<NormalWire>(inner, "normal").map(|w| PriorSpec::Normal {
+                mean: w.mean,
+                sd: w.sd,
+            }),
+            "lognormal" => sub::<LognormalWire>(inner, "lognormal").map(|w| PriorSpec::Lognormal {
+                mu: w.mu,
+                sigma: w.sigma,
+            }),
             "uniform" => Ok(PriorSpec::Uniform),
             other => Err(format!("unknown prior `{other}`; expected {EXPECTED}")),
         }
@@ -354,7 +379,10 @@ impl<'de> Deserialize<'de> for NoiseSpec {
         match k.as_str() {
             "sd" => sub::<f64>(inner, "sd").map(NoiseSpec::Sd),
             "sd_column" => sub::<String>(inner, "sd_column").map(NoiseSpec::SdColumn),
-            "unknown" => sub::<UnknownWire>(inner, "unknown").map(|w| NoiseSpec::Unknown { shape: w.shape, scale: w.scale }),
+            "unknown" => sub::<UnknownWire>(inner, "unknown").map(|w| NoiseSpec::Unknown {
+                shape: w.shape,
+                scale: w.scale,
+            }),
             other => Err(format!("unknown noise form `{other}`; expected {EXPECTED}")),
         }
         .map_err(D::Error::custom)

@@ -228,7 +228,10 @@ pub fn parse(
             // serde_yaml writes "path: message" when it knows the path.
             let (key, message) = match msg.split_once(": ") {
                 Some((k, m))
-                    if !k.contains(' ') && (k.contains('.') || k.contains('[') || k.chars().all(|c| c.is_ascii_alphanumeric() || c == '_')) =>
+                    if !k.contains(' ')
+                        && (k.contains('.')
+                            || k.contains('[')
+                            || k.chars().all(|c| c.is_ascii_alphanumeric() || c == '_')) =>
                 {
                     (k.to_string(), m.to_string())
                 }
@@ -252,7 +255,10 @@ pub fn parse(
     if !is_folder_name(&spec.name) {
         c.err(
             "name",
-            format!("`{}` is not a valid study name (expected [A-Za-z0-9._-]+)", spec.name),
+            format!(
+                "`{}` is not a valid study name (expected [A-Za-z0-9._-]+)",
+                spec.name
+            ),
         );
     }
 
@@ -267,16 +273,28 @@ pub fn parse(
         if !placeholder::is_identifier(&p.name) {
             c.err(
                 format!("{key}.name"),
-                format!("`{}` is not a valid parameter name (expected [A-Za-z_][A-Za-z0-9_]*)", p.name),
+                format!(
+                    "`{}` is not a valid parameter name (expected [A-Za-z_][A-Za-z0-9_]*)",
+                    p.name
+                ),
             );
         } else if p.name == "run_dir" || p.name == "run_id" {
-            c.err(format!("{key}.name"), format!("`{}` is reserved for the run folder placeholders", p.name));
+            c.err(
+                format!("{key}.name"),
+                format!("`{}` is reserved for the run folder placeholders", p.name),
+            );
         } else if !seen.insert(p.name.clone()) {
-            c.err(format!("{key}.name"), format!("duplicate parameter name `{}`", p.name));
+            c.err(
+                format!("{key}.name"),
+                format!("duplicate parameter name `{}`", p.name),
+            );
         }
         let [lo, hi] = p.range;
         if !(lo.is_finite() && hi.is_finite()) {
-            c.err(format!("{key}.range"), format!("range [{lo}, {hi}] must be finite"));
+            c.err(
+                format!("{key}.range"),
+                format!("range [{lo}, {hi}] must be finite"),
+            );
         } else if lo >= hi {
             c.err(
                 format!("{key}.range"),
@@ -287,7 +305,10 @@ pub fn parse(
             PriorSpec::Uniform => Prior::Uniform,
             PriorSpec::Normal { mean, sd } => {
                 if !(sd > 0.0 && sd.is_finite()) {
-                    c.err(format!("{key}.prior.normal.sd"), format!("sd {sd} must be > 0"));
+                    c.err(
+                        format!("{key}.prior.normal.sd"),
+                        format!("sd {sd} must be > 0"),
+                    );
                 } else if !(lo..=hi).contains(&mean) {
                     c.err(
                         format!("{key}.prior.normal.mean"),
@@ -298,7 +319,10 @@ pub fn parse(
             }
             PriorSpec::Lognormal { mu, sigma } => {
                 if !(sigma > 0.0 && sigma.is_finite()) {
-                    c.err(format!("{key}.prior.lognormal.sigma"), format!("sigma {sigma} must be > 0"));
+                    c.err(
+                        format!("{key}.prior.lognormal.sigma"),
+                        format!("sigma {sigma} must be > 0"),
+                    );
                 } else if hi <= 0.0 {
                     c.err(
                         format!("{key}.prior"),
@@ -307,7 +331,10 @@ pub fn parse(
                 } else if !(lo..=hi).contains(&mu.exp()) {
                     c.err(
                         format!("{key}.prior.lognormal.mu"),
-                        format!("prior median exp({mu}) = {} is outside the range [{lo}, {hi}]", mu.exp()),
+                        format!(
+                            "prior median exp({mu}) = {} is outside the range [{lo}, {hi}]",
+                            mu.exp()
+                        ),
                     );
                 }
                 Prior::LogNormal { mu, sigma }
@@ -325,15 +352,24 @@ pub fn parse(
     // Simulator.
     let sim = &spec.simulator;
     if sim.command.is_empty() || sim.command[0].is_empty() {
-        c.err("simulator.command", "the command needs at least the program");
+        c.err(
+            "simulator.command",
+            "the command needs at least the program",
+        );
     }
     if !(sim.timeout_s > 0.0 && sim.timeout_s.is_finite()) {
-        c.err("simulator.timeout_s", format!("timeout {} must be > 0 seconds", sim.timeout_s));
+        c.err(
+            "simulator.timeout_s",
+            format!("timeout {} must be > 0 seconds", sim.timeout_s),
+        );
     }
     if !is_contained_relative(&sim.output.file) {
         c.err(
             "simulator.output.file",
-            format!("`{}` must be a relative path inside the run folder (no `..`, not absolute)", sim.output.file),
+            format!(
+                "`{}` must be a relative path inside the run folder (no `..`, not absolute)",
+                sim.output.file
+            ),
         );
     }
     if sim.output.y.is_empty() {
@@ -345,12 +381,19 @@ pub fn parse(
         if !is_contained_relative(&f.to) {
             c.err(
                 format!("{key}.to"),
-                format!("`{}` must be a relative path inside the run folder (no `..`, not absolute)", f.to),
+                format!(
+                    "`{}` must be a relative path inside the run folder (no `..`, not absolute)",
+                    f.to
+                ),
             );
         }
         let path = dir.join(&f.template);
         match read(&path) {
-            Ok(text) => files.push(FileTemplate { path, text, to: f.to.clone() }),
+            Ok(text) => files.push(FileTemplate {
+                path,
+                text,
+                to: f.to.clone(),
+            }),
             Err(e) => c.err(
                 format!("{key}.template"),
                 format!("cannot read template `{}`: {e}", path.display()),
@@ -360,23 +403,41 @@ pub fn parse(
 
     // Experiments.
     if spec.experiments.is_empty() {
-        c.err("experiments", "at least one experiment with field data is needed");
+        c.err(
+            "experiments",
+            "at least one experiment with field data is needed",
+        );
     }
     let mut experiments = Vec::new();
     let mut seen = BTreeSet::new();
     for (i, e) in spec.experiments.iter().enumerate() {
         let key = format!("experiments[{i}]");
         if !is_folder_name(&e.name) {
-            c.err(format!("{key}.name"), format!("`{}` is not a valid experiment name (expected [A-Za-z0-9._-]+)", e.name));
+            c.err(
+                format!("{key}.name"),
+                format!(
+                    "`{}` is not a valid experiment name (expected [A-Za-z0-9._-]+)",
+                    e.name
+                ),
+            );
         } else if !seen.insert(e.name.clone()) {
-            c.err(format!("{key}.name"), format!("duplicate experiment name `{}`", e.name));
+            c.err(
+                format!("{key}.name"),
+                format!("duplicate experiment name `{}`", e.name),
+            );
         }
         let mut settings = BTreeMap::new();
         for (k, v) in &e.settings {
             if !placeholder::is_identifier(k) {
-                c.err(format!("{key}.settings.{k}"), format!("`{k}` is not a valid setting name (expected [A-Za-z_][A-Za-z0-9_]*)"));
+                c.err(
+                    format!("{key}.settings.{k}"),
+                    format!("`{k}` is not a valid setting name (expected [A-Za-z_][A-Za-z0-9_]*)"),
+                );
             } else if parameters.iter().any(|p| &p.name == k) || k == "run_dir" || k == "run_id" {
-                c.err(format!("{key}.settings.{k}"), format!("setting `{k}` clashes with a parameter or run placeholder"));
+                c.err(
+                    format!("{key}.settings.{k}"),
+                    format!("setting `{k}` clashes with a parameter or run placeholder"),
+                );
             }
             let text = match v {
                 SettingValue::Number(x) => placeholder::format_number(*x),
@@ -407,16 +468,24 @@ pub fn parse(
         };
         let data = match read(&data_path) {
             Err(err) => {
-                c.err(format!("{key}.data"), format!("cannot read data file `{}`: {err}", data_path.display()));
+                c.err(
+                    format!("{key}.data"),
+                    format!("cannot read data file `{}`: {err}", data_path.display()),
+                );
                 None
             }
-            Ok(text) => match FieldData::parse(&text, sim.output.x.as_deref(), &sim.output.y, sd_col) {
-                Ok(d) => Some(d),
-                Err((line, msg)) => {
-                    c.err(format!("{key}.data"), format!("{}:{line}: {msg}", data_path.display()));
-                    None
+            Ok(text) => {
+                match FieldData::parse(&text, sim.output.x.as_deref(), &sim.output.y, sd_col) {
+                    Ok(d) => Some(d),
+                    Err((line, msg)) => {
+                        c.err(
+                            format!("{key}.data"),
+                            format!("{}:{line}: {msg}", data_path.display()),
+                        );
+                        None
+                    }
                 }
-            },
+            }
         };
 
         // Placeholders: every name must be known for this experiment.
@@ -425,10 +494,24 @@ pub fn parse(
         known.insert("run_dir".into());
         known.insert("run_id".into());
         for (j, arg) in sim.command.iter().enumerate() {
-            check_placeholders(&mut c, &format!("simulator.command[{j}]"), arg, &known, &e.name, None);
+            check_placeholders(
+                &mut c,
+                &format!("simulator.command[{j}]"),
+                arg,
+                &known,
+                &e.name,
+                None,
+            );
         }
         for (j, f) in files.iter().enumerate() {
-            check_placeholders(&mut c, &format!("simulator.files[{j}].template"), &f.text, &known, &e.name, Some(&f.path));
+            check_placeholders(
+                &mut c,
+                &format!("simulator.files[{j}].template"),
+                &f.text,
+                &known,
+                &e.name,
+                Some(&f.path),
+            );
         }
         if let Some(data) = data {
             experiments.push(Experiment {
@@ -444,7 +527,10 @@ pub fn parse(
     let d = &spec.design;
     let points = d.points.unwrap_or(10 * parameters.len().max(1));
     if points < 2 {
-        c.err("design.points", format!("{points} points are too few (at least 2)"));
+        c.err(
+            "design.points",
+            format!("{points} points are too few (at least 2)"),
+        );
     }
     if spec.execution.jobs == Some(0) {
         c.err("execution.jobs", "jobs must be at least 1");
@@ -454,7 +540,10 @@ pub fn parse(
         c.err("calibration.chains", "chains must be at least 1");
     }
     if cal.draws < 10 {
-        c.err("calibration.draws", format!("{} draws per chain are too few (at least 10)", cal.draws));
+        c.err(
+            "calibration.draws",
+            format!("{} draws per chain are too few (at least 10)", cal.draws),
+        );
     }
 
     if !c.errors.is_empty() {

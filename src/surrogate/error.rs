@@ -9,7 +9,11 @@ pub enum SurrogateError {
     #[error("the trend with {m} coefficients cannot be estimated from {n} runs: use `surrogate.mean: constant` or add runs")]
     TrendNotIdentifiable { n: usize, m: usize },
     #[error("experiment `{experiment}` has {n} finished runs; at least {min} are needed to fit a surrogate")]
-    TooFewRuns { experiment: String, n: usize, min: usize },
+    TooFewRuns {
+        experiment: String,
+        n: usize,
+        min: usize,
+    },
     #[error("a hyperparameter is not a finite number (the search diverged)")]
     NonFiniteHyperparameters,
     #[error("every start of the hyperparameter search failed for `{output}`: {reason}")]

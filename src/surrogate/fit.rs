@@ -48,6 +48,9 @@ pub struct FitParams {
 
 const PENALTY: f64 = 1e3;
 
+/// Best parameters, best cost and evaluation count of one start, or why it failed.
+type StartResult = Result<(Vec<f64>, f64, u64), String>;
+
 fn bounds_of(b: &HyperBounds, i: usize, n: usize) -> (f64, f64) {
     if i == 0 {
         b.ln_signal_var
@@ -71,7 +74,13 @@ impl Objective {
     }
 
     fn eval(&self, p: &[f64]) -> Result<(f64, Vec<f64>), SurrogateError> {
-        let gp = Gp::fit(self.x.view(), self.y.view(), self.params.kernel, self.params.trend, Hyper::from_slice(p))?;
+        let gp = Gp::fit(
+            self.x.view(),
+            self.y.view(),
+            self.params.kernel,
+            self.params.trend,
+            Hyper::from_slice(p),
+        )?;
         let mut f = -gp.ln_marginal_likelihood;
         let mut g: Vec<f64> = gp.gradient().iter().map(|v| -v).collect();
         for (i, v) in p.iter().enumerate() {
@@ -155,10 +164,14 @@ pub fn fit_hyperparameters<R: Rng + ?Sized>(
             starts.push(v);
         }
     }
-    let results: Vec<Result<(Vec<f64>, f64, u64), String>> = starts
+    let results: Vec<StartResult> = starts
         .into_par_iter()
         .map(|init| {
-            let obj = Objective { x: x.to_owned(), y: y.to_owned(), params };
+            let obj = Objective {
+                x: x.to_owned(),
+                y: y.to_owned(),
+                params,
+            };
             let solver = LBFGS::new(MoreThuenteLineSearch::new(), 7)
                 .with_tolerance_cost(1e-10)
                 .map_err(|e| e.to_string())?;
@@ -188,7 +201,10 @@ pub fn fit_hyperparameters<R: Rng + ?Sized>(
             Err(e) => last_err = e,
         }
     }
-    let (p, _) = best.ok_or_else(|| SurrogateError::OptimisationFailed { output: name.into(), reason: last_err.clone() })?;
+    let (p, _) = best.ok_or_else(|| SurrogateError::OptimisationFailed {
+        output: name.into(),
+        reason: last_err.clone(),
+    })?;
     // Clamp into the box so the recorded hyperparameters are inside it.
     let clamped: Vec<f64> = p
         .iter()
@@ -198,6 +214,16 @@ pub fn fit_hyperparameters<R: Rng + ?Sized>(
             v.clamp(lo, hi)
         })
         .collect();
-    let gp = Gp::fit(x, y, params.kernel, params.trend, Hyper::from_slice(&clamped))?;
-    Ok(FitOutcome { gp, n_starts_ok: n_ok, n_evaluations: n_eval })
+    let gp = Gp::fit(
+        x,
+        y,
+        params.kernel,
+        params.trend,
+        Hyper::from_slice(&clamped),
+    )?;
+    Ok(FitOutcome {
+        gp,
+        n_starts_ok: n_ok,
+        n_evaluations: n_eval,
+    })
 }

@@ -14,7 +14,9 @@
 use super::kernel::Kernel;
 use super::SurrogateError;
 use ndarray::{Array1, Array2, ArrayView1, ArrayView2};
-use ndarray_linalg::{CholeskyFactorized, Diag, FactorizeC, InverseC, SolveC, SolveTriangular, UPLO};
+use ndarray_linalg::{
+    CholeskyFactorized, Diag, FactorizeC, InverseC, SolveC, SolveTriangular, UPLO,
+};
 
 /// Trend basis h(x).
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -138,7 +140,13 @@ impl Gp {
     /// # Errors
     /// [`SurrogateError::NotPositiveDefinite`] when K cannot be factored even with
     /// [`MAX_JITTER`] added to its diagonal.
-    pub fn fit(x: ArrayView2<f64>, y: ArrayView1<f64>, kernel: Kernel, trend: Trend, hyper: Hyper) -> Result<Self, SurrogateError> {
+    pub fn fit(
+        x: ArrayView2<f64>,
+        y: ArrayView1<f64>,
+        kernel: Kernel,
+        trend: Trend,
+        hyper: Hyper,
+    ) -> Result<Self, SurrogateError> {
         let n = x.nrows();
         let d = x.ncols();
         let m = trend.width(d);
@@ -155,8 +163,12 @@ impl Gp {
             match k.factorizec(UPLO::Lower) {
                 Ok(f) => break f,
                 Err(_) => {
-                    let next = if jitter == 0.0 { 1e-10 * (hyper.ln_signal_var.exp()) } else { jitter * 10.0 };
-                    if !(next <= MAX_JITTER * hyper.ln_signal_var.exp()) {
+                    let next = if jitter == 0.0 {
+                        1e-10 * (hyper.ln_signal_var.exp())
+                    } else {
+                        jitter * 10.0
+                    };
+                    if next.is_nan() || next > MAX_JITTER * hyper.ln_signal_var.exp() {
                         return Err(SurrogateError::NotPositiveDefinite { n, jitter: next });
                     }
                     for i in 0..n {
@@ -168,18 +180,28 @@ impl Gp {
         };
         let ln_det_k = ln_det(&factor);
         let h = Array2::from_shape_fn((n, m), |(i, j)| trend.basis_row(x.row(i))[j]);
-        let solve = |b: ArrayView1<f64>| factor.solvec(&b.to_owned()).map_err(|_| SurrogateError::NotPositiveDefinite { n, jitter });
+        let solve = |b: ArrayView1<f64>| {
+            factor
+                .solvec(&b.to_owned())
+                .map_err(|_| SurrogateError::NotPositiveDefinite { n, jitter })
+        };
         let k_inv_y = solve(y)?;
         let mut k_inv_h = Array2::zeros((n, m));
         for j in 0..m {
             k_inv_h.column_mut(j).assign(&solve(h.column(j))?);
         }
-        let k_inv = factor.invc().map_err(|_| SurrogateError::NotPositiveDefinite { n, jitter })?;
+        let k_inv = factor
+            .invc()
+            .map_err(|_| SurrogateError::NotPositiveDefinite { n, jitter })?;
         let l = factor.factor.clone();
         let (a_inv, beta, ln_det_a) = if m > 0 {
             let a = h.t().dot(&k_inv_h);
-            let fa = a.factorizec(UPLO::Lower).map_err(|_| SurrogateError::TrendNotIdentifiable { n, m })?;
-            let a_inv = fa.invc().map_err(|_| SurrogateError::TrendNotIdentifiable { n, m })?;
+            let fa = a
+                .factorizec(UPLO::Lower)
+                .map_err(|_| SurrogateError::TrendNotIdentifiable { n, m })?;
+            let a_inv = fa
+                .invc()
+                .map_err(|_| SurrogateError::TrendNotIdentifiable { n, m })?;
             let beta = a_inv.dot(&h.t().dot(&k_inv_y));
             (a_inv, beta, ln_det(&fa))
         } else {
@@ -191,7 +213,10 @@ impl Gp {
             let r = k_inv_h.row(i);
             k_inv[[i, i]] - r.dot(&a_inv.dot(&r))
         });
-        let lml = -0.5 * y.dot(&alpha) - 0.5 * ln_det_k - 0.5 * ln_det_a - 0.5 * (n - m) as f64 * (2.0 * std::f64::consts::PI).ln();
+        let lml = -0.5 * y.dot(&alpha)
+            - 0.5 * ln_det_k
+            - 0.5 * ln_det_a
+            - 0.5 * (n - m) as f64 * (2.0 * std::f64::consts::PI).ln();
         Ok(Self {
             kernel,
             trend,
@@ -221,7 +246,12 @@ impl Gp {
         let s2 = self.hyper.ln_signal_var.exp();
         let g = s2 * self.hyper.ln_nugget.exp();
         let p = &self.k_inv - &self.k_inv_h.dot(&self.a_inv).dot(&self.k_inv_h.t());
-        let inv_l: Vec<f64> = self.hyper.ln_length_scales.iter().map(|l| (-l).exp()).collect();
+        let inv_l: Vec<f64> = self
+            .hyper
+            .ln_length_scales
+            .iter()
+            .map(|l| (-l).exp())
+            .collect();
         let mut grad = vec![0.0; d + 2];
         let mut t = vec![0.0; d];
         for a in 0..n {

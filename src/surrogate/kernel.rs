@@ -75,7 +75,11 @@ mod tests {
     #[test]
     fn derivative_matches_finite_difference() {
         // Structural check: g(r) = −ρ'(r)/r by central differences.
-        for k in [Kernel::Matern52, Kernel::Matern32, Kernel::SquaredExponential] {
+        for k in [
+            Kernel::Matern52,
+            Kernel::Matern32,
+            Kernel::SquaredExponential,
+        ] {
             for r in [0.1, 0.7, 1.9] {
                 let h = 1e-6;
                 let fd = -(k.corr(r + h) - k.corr(r - h)) / (2.0 * h) / r;

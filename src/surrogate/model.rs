@@ -62,7 +62,9 @@ fn trend_of(m: MeanChoice) -> Trend {
 }
 
 fn unit_inputs(inputs: &[Vec<f64>], lo: &[f64], hi: &[f64]) -> Array2<f64> {
-    Array2::from_shape_fn((inputs.len(), lo.len()), |(i, j)| (inputs[i][j] - lo[j]) / (hi[j] - lo[j]))
+    Array2::from_shape_fn((inputs.len(), lo.len()), |(i, j)| {
+        (inputs[i][j] - lo[j]) / (hi[j] - lo[j])
+    })
 }
 
 fn standardize(col: &[f64]) -> (f64, f64) {
@@ -82,7 +84,9 @@ fn is_constant(mean: f64, sd: f64) -> bool {
 impl ExperimentModel {
     /// Surrogate mean and variance of every output value at parameter values `theta`.
     pub fn predict(&self, theta: &[f64]) -> (Vec<f64>, Vec<f64>) {
-        let u = Array2::from_shape_fn((1, theta.len()), |(_, j)| (theta[j] - self.lo[j]) / (self.hi[j] - self.lo[j]));
+        let u = Array2::from_shape_fn((1, theta.len()), |(_, j)| {
+            (theta[j] - self.lo[j]) / (self.hi[j] - self.lo[j])
+        });
         let mut mean = Vec::with_capacity(self.outputs.len());
         let mut var = Vec::with_capacity(self.outputs.len());
         for o in &self.outputs {
@@ -103,6 +107,7 @@ impl ExperimentModel {
 
     /// Rebuild at known hyperparameters (ln scale, standardised units) — the factorisation
     /// is recomputed from the training data, so records stay small and exact.
+    #[allow(clippy::too_many_arguments)] // mirrors the record's fields one to one
     pub fn rebuild(
         experiment: &str,
         lo: Vec<f64>,
@@ -122,12 +127,26 @@ impl ExperimentModel {
             let gp = match &hypers[k] {
                 Some(h) if !is_constant(mean, sd) => {
                     let y = Array1::from_iter(col.iter().map(|v| (v - mean) / sd));
-                    Some(Gp::fit(x.view(), y.view(), kernel, trend, Hyper::from_slice(h))?)
+                    Some(Gp::fit(
+                        x.view(),
+                        y.view(),
+                        kernel,
+                        trend,
+                        Hyper::from_slice(h),
+                    )?)
                 }
                 _ => None,
             };
             let validation = validate_output(gp.as_ref(), &col, mean, sd);
-            models.push(OutputModel { name: name.clone(), y_mean: mean, y_sd: if gp.is_some() { sd } else { 0.0 }, gp, n_starts_ok: 0, n_evaluations: 0, validation });
+            models.push(OutputModel {
+                name: name.clone(),
+                y_mean: mean,
+                y_sd: if gp.is_some() { sd } else { 0.0 },
+                gp,
+                n_starts_ok: 0,
+                n_evaluations: 0,
+                validation,
+            });
         }
         let validation = summarize(&models.iter().map(|m| &m.validation).collect::<Vec<_>>());
         Ok(Self {
@@ -160,7 +179,12 @@ fn validate_output(gp: Option<&Gp>, col: &[f64], mean: f64, sd: f64) -> Validati
 ///
 /// # Errors
 /// Too few runs for an experiment, or a hyperparameter search that fails for an output.
-pub fn fit_surrogate(runs: &RunSet, params: &[Parameter], settings: SurrogateParams, seed: u64) -> Result<FittedSurrogate, SurrogateError> {
+pub fn fit_surrogate(
+    runs: &RunSet,
+    params: &[Parameter],
+    settings: SurrogateParams,
+    seed: u64,
+) -> Result<FittedSurrogate, SurrogateError> {
     crate::init_blas();
     let kernel = Kernel::from(settings.kernel);
     let trend = trend_of(settings.mean);
@@ -168,18 +192,43 @@ pub fn fit_surrogate(runs: &RunSet, params: &[Parameter], settings: SurrogatePar
     let hi: Vec<f64> = params.iter().map(|p| p.hi).collect();
     let mut experiments = Vec::new();
     for (ei, er) in runs.experiments.iter().enumerate() {
-        experiments.push(fit_experiment(er, &lo, &hi, kernel, trend, seed, ei as u64)?);
+        experiments.push(fit_experiment(
+            er, &lo, &hi, kernel, trend, seed, ei as u64,
+        )?);
     }
-    Ok(FittedSurrogate { kernel, trend, seed, experiments })
+    Ok(FittedSurrogate {
+        kernel,
+        trend,
+        seed,
+        experiments,
+    })
 }
 
-fn fit_experiment(er: &ExperimentRuns, lo: &[f64], hi: &[f64], kernel: Kernel, trend: Trend, seed: u64, stream_base: u64) -> Result<ExperimentModel, SurrogateError> {
+fn fit_experiment(
+    er: &ExperimentRuns,
+    lo: &[f64],
+    hi: &[f64],
+    kernel: Kernel,
+    trend: Trend,
+    seed: u64,
+    stream_base: u64,
+) -> Result<ExperimentModel, SurrogateError> {
     let n = er.inputs.len();
     if n < MIN_RUNS {
-        return Err(SurrogateError::TooFewRuns { experiment: er.experiment.clone(), n, min: MIN_RUNS });
+        return Err(SurrogateError::TooFewRuns {
+            experiment: er.experiment.clone(),
+            n,
+            min: MIN_RUNS,
+        });
     }
     let x = unit_inputs(&er.inputs, lo, hi);
-    let params = FitParams { kernel, trend, bounds: HyperBounds::default(), n_starts: N_STARTS, max_iters: 200 };
+    let params = FitParams {
+        kernel,
+        trend,
+        bounds: HyperBounds::default(),
+        n_starts: N_STARTS,
+        max_iters: 200,
+    };
     let models: Result<Vec<OutputModel>, SurrogateError> = er
         .value_names
         .par_iter()
@@ -188,14 +237,30 @@ fn fit_experiment(er: &ExperimentRuns, lo: &[f64], hi: &[f64], kernel: Kernel, t
             let col: Vec<f64> = er.outputs.iter().map(|r| r[k]).collect();
             let (mean, sd) = standardize(&col);
             if is_constant(mean, sd) {
-                return Ok(OutputModel { name: name.clone(), y_mean: mean, y_sd: 0.0, gp: None, n_starts_ok: 0, n_evaluations: 0, validation: validate_output(None, &col, mean, 0.0) });
+                return Ok(OutputModel {
+                    name: name.clone(),
+                    y_mean: mean,
+                    y_sd: 0.0,
+                    gp: None,
+                    n_starts_ok: 0,
+                    n_evaluations: 0,
+                    validation: validate_output(None, &col, mean, 0.0),
+                });
             }
             let y = Array1::from_iter(col.iter().map(|v| (v - mean) / sd));
             // One stream per (experiment, output): independent of thread scheduling.
             let mut rng = crate::rng::stream(seed, (stream_base << 32) | k as u64);
             let out = fit_hyperparameters(x.view(), y.view(), params, name, &mut rng)?;
             let validation = validate_output(Some(&out.gp), &col, mean, sd);
-            Ok(OutputModel { name: name.clone(), y_mean: mean, y_sd: sd, gp: Some(out.gp), n_starts_ok: out.n_starts_ok, n_evaluations: out.n_evaluations, validation })
+            Ok(OutputModel {
+                name: name.clone(),
+                y_mean: mean,
+                y_sd: sd,
+                gp: Some(out.gp),
+                n_starts_ok: out.n_starts_ok,
+                n_evaluations: out.n_evaluations,
+                validation,
+            })
         })
         .collect();
     let outputs = models?;

@@ -44,15 +44,31 @@ impl Validation {
         let ybar = y.iter().sum::<f64>() / n;
         let sse: f64 = y.iter().zip(pred).map(|(a, b)| (a - b).powi(2)).sum();
         let sst: f64 = y.iter().map(|a| (a - ybar).powi(2)).sum();
-        let z: Vec<f64> = y.iter().zip(pred).zip(sd).filter(|(_, s)| **s > 0.0).map(|((a, b), s)| (a - b) / s).collect();
-        let mut v = Self { sse, sst, z, n: y.len(), ..Default::default() };
+        let z: Vec<f64> = y
+            .iter()
+            .zip(pred)
+            .zip(sd)
+            .filter(|(_, s)| **s > 0.0)
+            .map(|((a, b), s)| (a - b) / s)
+            .collect();
+        let mut v = Self {
+            sse,
+            sst,
+            z,
+            n: y.len(),
+            ..Default::default()
+        };
         v.finish();
         v
     }
 
     fn finish(&mut self) {
         self.rmse = (self.sse / self.n.max(1) as f64).sqrt();
-        self.q2 = if self.sst > 0.0 { 1.0 - self.sse / self.sst } else { 1.0 };
+        self.q2 = if self.sst > 0.0 {
+            1.0 - self.sse / self.sst
+        } else {
+            1.0
+        };
         let nz = self.z.len();
         if nz == 0 {
             self.coverage95 = 1.0;
@@ -61,7 +77,8 @@ impl Validation {
         }
         self.coverage95 = self.z.iter().filter(|z| z.abs() <= Z_975).count() as f64 / nz as f64;
         let mean = self.z.iter().sum::<f64>() / nz as f64;
-        let sd = (self.z.iter().map(|z| (z - mean).powi(2)).sum::<f64>() / (nz.max(2) - 1) as f64).sqrt();
+        let sd = (self.z.iter().map(|z| (z - mean).powi(2)).sum::<f64>() / (nz.max(2) - 1) as f64)
+            .sqrt();
         let max_abs = self.z.iter().fold(0.0f64, |m, z| m.max(z.abs()));
         self.standardized_error = ZSummary { mean, sd, max_abs };
     }

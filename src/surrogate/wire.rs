@@ -94,9 +94,17 @@ impl SurrogateBody {
                                 length_scales: names
                                     .iter()
                                     .enumerate()
-                                    .map(|(j, n)| (n.clone(), gp.hyper.ln_length_scales[j].exp() * (e.hi[j] - e.lo[j])))
+                                    .map(|(j, n)| {
+                                        (
+                                            n.clone(),
+                                            gp.hyper.ln_length_scales[j].exp()
+                                                * (e.hi[j] - e.lo[j]),
+                                        )
+                                    })
                                     .collect(),
-                                nugget: gp.hyper.ln_nugget.exp() * gp.hyper.ln_signal_var.exp() * s2,
+                                nugget: gp.hyper.ln_nugget.exp()
+                                    * gp.hyper.ln_signal_var.exp()
+                                    * s2,
                                 ln_internal: gp.hyper.to_vec(),
                                 jitter: gp.jitter,
                             }
@@ -107,10 +115,19 @@ impl SurrogateBody {
                         validation: o.validation.clone(),
                     })
                     .collect(),
-                training: TrainingWire { point_ids: e.point_ids.clone(), inputs: e.inputs.clone(), outputs: e.outputs_raw.clone() },
+                training: TrainingWire {
+                    point_ids: e.point_ids.clone(),
+                    inputs: e.inputs.clone(),
+                    outputs: e.outputs_raw.clone(),
+                },
             })
             .collect();
-        Self { kernel: s.kernel.name().into(), mean: s.trend.name().into(), seed: s.seed, experiments }
+        Self {
+            kernel: s.kernel.name().into(),
+            mean: s.trend.name().into(),
+            seed: s.seed,
+            experiments,
+        }
     }
 
     /// Rebuild the surrogate (factorisations are recomputed at the recorded hyperparameters).
@@ -132,12 +149,20 @@ impl SurrogateBody {
         let mut experiments = Vec::new();
         for e in &self.experiments {
             let names: Vec<String> = e.outputs.iter().map(|o| o.name.clone()).collect();
-            let hypers: Vec<Option<Vec<f64>>> = e.outputs.iter().map(|o| o.hyperparameters.as_ref().map(|h| h.ln_internal.clone())).collect();
+            let hypers: Vec<Option<Vec<f64>>> = e
+                .outputs
+                .iter()
+                .map(|o| o.hyperparameters.as_ref().map(|h| h.ln_internal.clone()))
+                .collect();
             let mut m = ExperimentModel::rebuild(
                 &e.name,
                 e.lower.clone(),
                 e.upper.clone(),
-                (&e.training.point_ids, &e.training.inputs, &e.training.outputs),
+                (
+                    &e.training.point_ids,
+                    &e.training.inputs,
+                    &e.training.outputs,
+                ),
                 &names,
                 &hypers,
                 kernel,
@@ -149,6 +174,11 @@ impl SurrogateBody {
             }
             experiments.push(m);
         }
-        Ok(FittedSurrogate { kernel, trend, seed: self.seed, experiments })
+        Ok(FittedSurrogate {
+            kernel,
+            trend,
+            seed: self.seed,
+            experiments,
+        })
     }
 }
