@@ -94,4 +94,7 @@ pub struct RunArgs {
     /// Where runs execute (default: execution.backend of the study).
     #[arg(long, value_enum)]
     pub backend: Option<BackendArg>,
+    /// Run everything again, finished runs included (after changing the simulator on purpose).
+    #[arg(long)]
+    pub rerun: bool,
 }

@@ -13,7 +13,7 @@ use crate::progress::Observer;
 use crate::record::{
     read_record, sha256_file, write_atomic, write_record, ProvenanceClock, Record,
 };
-use crate::runs::{self, RunBody, RunSummary, StateCounts};
+use crate::runs::{self, RunOptions, RunState, RunSummary, StateCounts};
 use crate::study::Study;
 use crate::surrogate::{fit_surrogate, FittedSurrogate, SurrogateBody, Validation};
 use anyhow::{bail, Context, Result};
@@ -166,34 +166,84 @@ pub fn load_design(c: &Campaign) -> Result<Design> {
         .with_context(|| format!("{} is malformed", path.display()))
 }
 
-/// Run every pending or failed run of the design.
+/// Take the campaign's lock (one assay process per campaign at a time).
+///
+/// # Errors
+/// Another process holds it; the message names that process.
+pub fn lock(c: &Campaign) -> Result<runs::CampaignLock> {
+    Ok(runs::lock_campaign(&c.dir, &c.command_line)?)
+}
+
+/// Run every pending or failed run of the design. The caller holds [`lock`].
+///
+/// # Errors
+/// A missing design, a simulator definition that changed under done runs (bad input,
+/// exit 2), or I/O on the campaign folder.
 pub fn run_stage(
     c: &Campaign,
-    jobs: usize,
+    options: RunOptions,
     stop: &AtomicBool,
     observer: &dyn Observer,
 ) -> Result<RunSummary> {
     let design = load_design(c)?;
-    runs::run_all(
+    match runs::run_all(
         &c.study,
         &design,
         &c.dir,
-        jobs,
+        options,
         &c.command_line,
         stop,
         observer,
-    )
+    ) {
+        Err(e) if e.is::<runs::RunsError>() => Err(InputError(e.to_string()).into()),
+        other => other,
+    }
 }
 
-/// Counts of runs by state per experiment.
-pub fn status(c: &Campaign) -> Result<(usize, BTreeMap<String, StateCounts>, Vec<RunBody>)> {
+/// What `assay status` shows.
+#[derive(Debug, Clone)]
+pub struct StatusReport {
+    pub n_points: usize,
+    pub counts: BTreeMap<String, StateCounts>,
+    /// Failure reasons of failed runs, most common first.
+    pub reasons: Vec<(String, usize)>,
+    /// Latest change of any run record (UTC, RFC 3339).
+    pub last_activity: Option<String>,
+}
+
+/// Reasons longer than this are cut for the status table.
+const REASON_WIDTH: usize = 100;
+
+/// Counts of runs by state per experiment, failure reasons and last activity.
+pub fn status(c: &Campaign) -> Result<StatusReport> {
     let design = load_design(c)?;
     let (_, bodies) = runs::load_runs(&c.study, &design, &c.dir)?;
-    Ok((
-        design.points.len(),
-        runs::status_counts(&c.study, &design, &bodies),
-        bodies,
-    ))
+    let counts = runs::status_counts(&c.study, &design, &bodies);
+    let mut by_reason: BTreeMap<String, usize> = BTreeMap::new();
+    for b in bodies.iter().filter(|b| b.state == RunState::Failed) {
+        let r = b.reason.clone().unwrap_or_else(|| "unknown".into());
+        let short: String = r.chars().take(REASON_WIDTH).collect();
+        *by_reason.entry(short).or_default() += 1;
+    }
+    let mut reasons: Vec<(String, usize)> = by_reason.into_iter().collect();
+    reasons.sort_by(|a, b| b.1.cmp(&a.1).then(a.0.cmp(&b.0)));
+    let mut last: Option<SystemTime> = None;
+    for p in &design.points {
+        for e in &c.study.experiments {
+            if let Some(t) = mtime(&runs::run_record_path(&c.dir, &p.id, &e.name)) {
+                last = Some(last.map_or(t, |l| l.max(t)));
+            }
+        }
+    }
+    let last_activity = last.map(|t| {
+        chrono::DateTime::<chrono::Utc>::from(t).to_rfc3339_opts(chrono::SecondsFormat::Secs, true)
+    });
+    Ok(StatusReport {
+        n_points: design.points.len(),
+        counts,
+        reasons,
+        last_activity,
+    })
 }
 
 /// Fit the surrogate to the finished runs and write `surrogate.yaml`.

@@ -13,10 +13,10 @@ use assay::record::{read_record, Record};
 use assay::study::{self, Study, StudyErrors};
 use clap::Parser;
 use indicatif::{ProgressBar, ProgressStyle};
-use std::io::Write;
+use std::io::{IsTerminal, Write};
 use std::path::Path;
 use std::process::ExitCode;
-use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
 use std::sync::{Arc, OnceLock};
 
 /// Set by Ctrl-C: stages stop at the next safe point and keep what they finished.
@@ -38,21 +38,40 @@ macro_rules! out {
     }};
 }
 
-/// Progress on stderr with indicatif (hidden when stderr is not a terminal).
+/// Progress on stderr: an indicatif bar on a terminal, plain lines otherwise (logs,
+/// batch jobs).
 struct Bar {
     bar: ProgressBar,
+    plain: bool,
+    task: std::sync::Mutex<String>,
+    total: AtomicU64,
+    pos: AtomicU64,
 }
 
 impl Bar {
     fn new() -> Self {
         Self {
             bar: ProgressBar::hidden(),
+            plain: !std::io::stderr().is_terminal(),
+            task: std::sync::Mutex::new(String::new()),
+            total: AtomicU64::new(0),
+            pos: AtomicU64::new(0),
         }
     }
 }
 
+/// Plain progress lines: about this many per task.
+const PLAIN_LINES: u64 = 10;
+
 impl Observer for Bar {
     fn start(&self, task: &str, total: u64) {
+        *self.task.lock().expect("task lock") = task.to_string();
+        self.total.store(total, Ordering::SeqCst);
+        self.pos.store(0, Ordering::SeqCst);
+        if self.plain {
+            eprintln!("{task}: {total} to do");
+            return;
+        }
         self.bar
             .set_draw_target(indicatif::ProgressDrawTarget::stderr());
         self.bar.set_length(total);
@@ -68,16 +87,33 @@ impl Observer for Bar {
         self.bar.reset_elapsed();
     }
     fn advance(&self, n: u64, message: &str) {
+        if self.plain {
+            let total = self.total.load(Ordering::SeqCst).max(1);
+            let before = self.pos.fetch_add(n, Ordering::SeqCst);
+            let after = before + n;
+            let step = (total / PLAIN_LINES).max(1);
+            if after / step != before / step || after == total {
+                let task = self.task.lock().expect("task lock").clone();
+                eprintln!("{task}: {after}/{total} {message}");
+            }
+            return;
+        }
         self.bar.inc(n);
         if !message.is_empty() {
             self.bar.set_message(message.to_string());
         }
     }
     fn note(&self, message: &str) {
-        self.bar.suspend(|| eprintln!("  {message}"));
+        if self.plain {
+            eprintln!("  {message}");
+        } else {
+            self.bar.suspend(|| eprintln!("  {message}"));
+        }
     }
     fn finish(&self) {
-        self.bar.finish_and_clear();
+        if !self.plain {
+            self.bar.finish_and_clear();
+        }
     }
 }
 
@@ -155,8 +191,12 @@ fn print_summary(s: &Study, c: &Campaign) {
 }
 
 fn print_status(c: &Campaign) -> Result<()> {
-    let (n_points, counts, _) = campaign::status(c)?;
-    out!("{} design points; runs by state:", n_points);
+    let s = campaign::status(c)?;
+    out!(
+        "{} design points; runs by state ({}):",
+        s.n_points,
+        c.dir.display()
+    );
     out!(
         "  {:<16} {:>8} {:>8} {:>8} {:>8}",
         "experiment",
@@ -165,7 +205,7 @@ fn print_status(c: &Campaign) -> Result<()> {
         "done",
         "failed"
     );
-    for (e, k) in counts {
+    for (e, k) in &s.counts {
         out!(
             "  {:<16} {:>8} {:>8} {:>8} {:>8}",
             e,
@@ -174,6 +214,16 @@ fn print_status(c: &Campaign) -> Result<()> {
             k.done,
             k.failed
         );
+    }
+    if !s.reasons.is_empty() {
+        out!("most common failure reasons:");
+        for (r, n) in s.reasons.iter().take(5) {
+            out!("  {n:>6} × {r}");
+        }
+    }
+    match &s.last_activity {
+        Some(t) => out!("last activity: {t}"),
+        None => out!("last activity: none (no run has started)"),
     }
     Ok(())
 }
@@ -290,6 +340,7 @@ fn execute(cli: &Cli) -> Result<bool> {
             out!("ok: the study is valid");
         }
         Command::Design(a) => {
+            let _lock = campaign::lock(&c)?;
             let (d, how) = campaign::write_design(&c, a.force)?;
             let verb = if how == DesignOutcome::Kept {
                 "kept (same settings)"
@@ -303,7 +354,8 @@ fn execute(cli: &Cli) -> Result<bool> {
             );
         }
         Command::Run(a) => {
-            let s = campaign::run_stage(&c, plan::jobs(a, &c.study), stop, obs.as_ref())?;
+            let _lock = campaign::lock(&c)?;
+            let s = campaign::run_stage(&c, plan::run_options(a, &c.study), stop, obs.as_ref())?;
             report_runs(&s);
             some_failed = s.failed > 0;
         }
@@ -317,6 +369,7 @@ fn execute(cli: &Cli) -> Result<bool> {
             print_posterior(&c)?;
         }
         Command::All(a) => {
+            let _lock = campaign::lock(&c)?;
             let (d, how) = campaign::write_design(&c, false)?;
             let verb = if how == DesignOutcome::Kept {
                 "kept"
@@ -324,7 +377,7 @@ fn execute(cli: &Cli) -> Result<bool> {
                 "written"
             };
             out!("design: {} points {verb}", d.points.len());
-            let s = campaign::run_stage(&c, plan::jobs(a, &c.study), stop, obs.as_ref())?;
+            let s = campaign::run_stage(&c, plan::run_options(a, &c.study), stop, obs.as_ref())?;
             report_runs(&s);
             some_failed = s.failed > 0;
             if stop.load(Ordering::SeqCst) {

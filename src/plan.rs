@@ -2,7 +2,16 @@
 //! defaults from the command line, the study and the machine are combined.
 
 use crate::args::RunArgs;
+use assay::runs::RunOptions;
 use assay::study::Study;
+
+/// Options of the run stage.
+pub fn run_options(args: &RunArgs, study: &Study) -> RunOptions {
+    RunOptions {
+        jobs: jobs(args, study),
+        rerun: args.rerun,
+    }
+}
 
 /// Concurrent runs: `--jobs`, else `execution.jobs`, else the number of CPUs.
 pub fn jobs(args: &RunArgs, study: &Study) -> usize {

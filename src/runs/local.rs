@@ -2,7 +2,7 @@
 //! shell), `jobs` at a time, with a timeout and retries, and record every attempt.
 
 use super::parse::{match_stations, parse_output};
-use super::store::{run_dir, run_record_path, Attempt, RunBody, RunState};
+use super::store::{run_dir, run_record_path, Attempt, Fingerprint, RunBody, RunState};
 use crate::design::{Design, DesignPoint};
 use crate::progress::Observer;
 use crate::record::{read_record, sha256_file, write_record, ProvenanceClock, Record};
@@ -45,64 +45,145 @@ pub fn value_names(study: &Study, e: &Experiment) -> Vec<String> {
     out
 }
 
-/// Is a `running` record stale (its owner process is gone)?
-fn owner_is_gone(body: &RunBody) -> bool {
-    let host = gethostname::gethostname().to_string_lossy().into_owned();
-    match (body.owner_pid, &body.owner_host) {
-        (Some(pid), Some(h)) if *h == host => {
-            pid == std::process::id()
-                || nix::sys::signal::kill(nix::unistd::Pid::from_raw(pid as i32), None).is_err()
-        }
-        // Another host: we cannot probe it; a later issue adds leases. Treat as stale.
-        _ => true,
+/// Options of one `run` invocation.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct RunOptions {
+    /// Concurrent runs.
+    pub jobs: usize,
+    /// Run everything again, done runs included (after the simulator changed on purpose).
+    pub rerun: bool,
+}
+
+/// Failures of the run stage that are not a simulator's failure.
+#[derive(Debug, thiserror::Error)]
+#[non_exhaustive]
+pub enum RunsError {
+    #[error("the study's {} changed since {n_runs} runs were done (first: {example}); refusing to mix old and new runs. Undo the change, or run `assay run --rerun` to run everything again", .changed.join(", "))]
+    SimulatorChanged {
+        changed: Vec<String>,
+        n_runs: usize,
+        example: String,
+    },
+}
+
+fn sha_json(v: &serde_json::Value) -> String {
+    crate::record::sha256_hex(v.to_string().as_bytes())
+}
+
+/// The fingerprint of experiment `e`'s runs under the study's simulator section.
+pub fn fingerprint(study: &Study, e: &Experiment) -> Fingerprint {
+    let sim = &study.simulator;
+    let files: Vec<serde_json::Value> = sim
+        .files
+        .iter()
+        .map(|f| serde_json::json!({"to": f.to, "text": f.text}))
+        .collect();
+    Fingerprint {
+        command: sha_json(&serde_json::json!(sim.command)),
+        files: sha_json(&serde_json::json!(files)),
+        output: sha_json(&serde_json::json!({
+            "file": sim.output.file,
+            "format": format!("{:?}", sim.output.format),
+            "x": sim.output.x,
+            "y": sim.output.y,
+            "stations": e.data.stations().iter().map(|s| s.map(|v| v.to_bits())).collect::<Vec<_>>(),
+        })),
+        env: sha_json(&serde_json::json!(sim.env)),
+        settings: sha_json(&serde_json::json!(e.settings)),
     }
+}
+
+/// A run's key: sha256 of its fingerprint and its parameter values (bit-exact).
+pub fn run_key(fp: &Fingerprint, values: &[f64]) -> String {
+    let bits: Vec<u64> = values.iter().map(|v| v.to_bits()).collect();
+    sha_json(&serde_json::json!({"fingerprint": fp, "parameters": bits}))
 }
 
 /// Run every pending or failed run of the design, `jobs` at a time.
 ///
+/// The caller holds the campaign lock ([`super::lock_campaign`]), so a record found in
+/// state `running` was left by a process that died: it is run again.
+///
 /// # Errors
-/// Only for problems with the campaign folder itself; a failing simulator is recorded
-/// in its `run.yaml` and counted in [`RunSummary::failed`].
+/// [`RunsError::SimulatorChanged`] when done runs were made with another simulator
+/// definition (unless `rerun`), and problems with the campaign folder itself; a failing
+/// simulator is recorded in its `run.yaml` and counted in [`RunSummary::failed`].
 pub fn run_all(
     study: &Study,
     design: &Design,
     campaign: &Path,
-    jobs: usize,
+    options: RunOptions,
     command_line: &[String],
     stop: &AtomicBool,
     observer: &dyn Observer,
 ) -> Result<RunSummary> {
+    let fingerprints: BTreeMap<&str, Fingerprint> = study
+        .experiments
+        .iter()
+        .map(|e| (e.name.as_str(), fingerprint(study, e)))
+        .collect();
     let mut todo = Vec::new();
     let mut summary = RunSummary::default();
+    let mut changed: Vec<String> = Vec::new();
+    let mut n_changed = 0;
+    let mut example = String::new();
     for p in &design.points {
         for e in &study.experiments {
             let path = run_record_path(campaign, &p.id, &e.name);
             let previous = if path.exists() {
                 let rec: Record<RunBody> = read_record(&path)?;
-                match rec.body.state {
-                    RunState::Done => {
+                if rec.body.state == RunState::Done {
+                    let diff = match &rec.body.fingerprint {
+                        Some(old) => old.changed(&fingerprints[e.name.as_str()]),
+                        None => vec![],
+                    };
+                    if !diff.is_empty() && !options.rerun {
+                        for d in diff {
+                            if !changed.iter().any(|c| c == d) {
+                                changed.push(d.to_string());
+                            }
+                        }
+                        n_changed += 1;
+                        if example.is_empty() {
+                            example = format!("{}/{}", p.id, e.name);
+                        }
+                        continue;
+                    }
+                    if !options.rerun {
                         summary.skipped += 1;
                         continue;
                     }
-                    RunState::Running if !owner_is_gone(&rec.body) => {
-                        observer.note(&format!(
-                            "{}/{} is running in another assay process; left alone",
-                            p.id, e.name
-                        ));
-                        continue;
-                    }
-                    _ => Some(rec.body),
                 }
+                Some(rec.body)
             } else {
                 None
             };
             todo.push((p, e, previous));
         }
     }
+    if !changed.is_empty() {
+        return Err(RunsError::SimulatorChanged {
+            changed,
+            n_runs: n_changed,
+            example,
+        }
+        .into());
+    }
     observer.start("runs", todo.len() as u64);
     let next = AtomicUsize::new(0);
+    let n_done = AtomicUsize::new(0);
+    let n_failed = AtomicUsize::new(0);
+    let n_running = AtomicUsize::new(0);
     let results = Mutex::new(Vec::new());
-    let workers = jobs.max(1).min(todo.len().max(1));
+    let workers = options.jobs.max(1).min(todo.len().max(1));
+    let counts = |n_done: &AtomicUsize, n_failed: &AtomicUsize, n_running: &AtomicUsize| {
+        format!(
+            "{} done · {} failed · {} running",
+            n_done.load(Ordering::SeqCst),
+            n_failed.load(Ordering::SeqCst),
+            n_running.load(Ordering::SeqCst)
+        )
+    };
     std::thread::scope(|s| {
         for _ in 0..workers {
             s.spawn(|| loop {
@@ -113,23 +194,30 @@ pub fn run_all(
                 let Some((p, e, prev)) = todo.get(i) else {
                     break;
                 };
-                let r = run_one(study, p, e, prev.clone(), campaign, command_line, stop);
+                n_running.fetch_add(1, Ordering::SeqCst);
+                let fp = &fingerprints[e.name.as_str()];
+                let r = run_one(study, p, e, fp, prev.clone(), campaign, command_line, stop);
+                n_running.fetch_sub(1, Ordering::SeqCst);
                 let label = format!("{}/{}", p.id, e.name);
                 match &r {
-                    Ok(RunState::Done) => observer.advance(1, &format!("{label} done")),
-                    Ok(RunState::Pending) => {
+                    Ok(RunState::Done) => {
+                        n_done.fetch_add(1, Ordering::SeqCst);
+                        observer.advance(1, &counts(&n_done, &n_failed, &n_running));
+                    }
+                    Ok(RunState::Pending) | Ok(RunState::Running) => {
                         observer.note(&format!("{label} interrupted; back to pending"))
                     }
-                    Ok(_) => {
+                    Ok(RunState::Failed) => {
+                        n_failed.fetch_add(1, Ordering::SeqCst);
                         observer.note(&format!(
                             "{label} failed (see {})",
                             run_record_path(campaign, &p.id, &e.name).display()
                         ));
-                        observer.advance(1, &format!("{label} failed"));
+                        observer.advance(1, &counts(&n_done, &n_failed, &n_running));
                     }
                     Err(err) => {
                         observer.note(&format!("{label}: {err:#}"));
-                        observer.advance(1, &format!("{label} error"));
+                        observer.advance(1, &counts(&n_done, &n_failed, &n_running));
                     }
                 }
                 results.lock().expect("results lock").push(r);
@@ -144,6 +232,10 @@ pub fn run_all(
             RunState::Failed => summary.failed += 1,
         }
     }
+    // Runs never started because of an interruption.
+    summary.interrupted += todo
+        .len()
+        .saturating_sub(next.load(Ordering::SeqCst).min(todo.len()));
     Ok(summary)
 }
 
@@ -162,10 +254,12 @@ fn program(study: &Study, arg0: &str) -> PathBuf {
     }
 }
 
+#[allow(clippy::too_many_arguments)] // one run's whole context; called from one place
 fn run_one(
     study: &Study,
     point: &DesignPoint,
     e: &Experiment,
+    fp: &Fingerprint,
     previous: Option<RunBody>,
     campaign: &Path,
     command_line: &[String],
@@ -194,6 +288,14 @@ fn run_one(
         crate::record::write_atomic(&dir.join(&f.to), text.as_bytes())?;
     }
 
+    let mut env = Vec::new();
+    for (k, v) in &study.simulator.env {
+        env.push((
+            k.clone(),
+            placeholder::render(v, &values).map_err(|e| anyhow::anyhow!(e.message))?,
+        ));
+    }
+
     let mut body = previous.unwrap_or_else(|| RunBody {
         point: point.id.clone(),
         experiment: e.name.clone(),
@@ -207,6 +309,9 @@ fn run_one(
         command: argv.clone(),
         owner_pid: None,
         owner_host: None,
+        owner_started_utc: None,
+        key: None,
+        fingerprint: None,
         values: None,
         value_names: value_names(study, e),
         history: vec![],
@@ -214,6 +319,8 @@ fn run_one(
     body.parameters = parameters;
     body.command = argv.clone();
     body.value_names = value_names(study, e);
+    body.fingerprint = Some(fp.clone());
+    body.key = Some(run_key(fp, &point.values));
 
     let max_attempts = 1 + study.simulator.retries;
     for _ in 0..max_attempts {
@@ -222,6 +329,7 @@ fn run_one(
         body.attempts += 1;
         body.owner_pid = Some(std::process::id());
         body.owner_host = Some(gethostname::gethostname().to_string_lossy().into_owned());
+        body.owner_started_utc = Some(now());
         body.values = None;
         body.outputs_sha256 = None;
         write_record(
@@ -231,12 +339,13 @@ fn run_one(
 
         let started = now();
         let t0 = Instant::now();
-        let (exit_code, outcome) = attempt(study, e, &argv, &dir, stop);
+        let (exit_code, outcome) = attempt(study, e, &argv, &env, &dir, stop);
         let elapsed = t0.elapsed().as_secs_f64();
         body.exit_code = exit_code;
         body.elapsed_s = Some(elapsed);
         body.owner_pid = None;
         body.owner_host = None;
+        body.owner_started_utc = None;
         match outcome {
             Outcome::Interrupted => {
                 body.state = RunState::Pending;
@@ -295,6 +404,9 @@ fn clock_snapshot(command_line: &[String]) -> crate::record::Provenance {
     ProvenanceClock::start(command_line.to_vec()).finish()
 }
 
+/// Time a simulator gets to exit after SIGTERM on interruption before SIGKILL.
+const TERM_GRACE: Duration = Duration::from_secs(5);
+
 /// How one attempt ended.
 enum Outcome {
     /// Output values matched to the stations, and the output file's sha256.
@@ -310,6 +422,7 @@ fn attempt(
     study: &Study,
     e: &Experiment,
     argv: &[String],
+    env: &[(String, String)],
     dir: &Path,
     stop: &AtomicBool,
 ) -> (Option<i32>, Outcome) {
@@ -339,6 +452,7 @@ fn attempt(
     let mut child = match Command::new(&prog)
         .args(&argv[1..])
         .current_dir(dir)
+        .envs(env.iter().map(|(k, v)| (k, v)))
         .stdin(Stdio::null())
         .stdout(stdout)
         .stderr(stderr)
@@ -367,7 +481,16 @@ fn attempt(
             }
         }
         if stop.load(Ordering::SeqCst) {
+            // Ask the simulator to stop (SIGTERM to its process group), then insist.
             let pgid = nix::unistd::Pid::from_raw(child.id() as i32);
+            let _ = nix::sys::signal::killpg(pgid, nix::sys::signal::Signal::SIGTERM);
+            let grace = Instant::now() + TERM_GRACE;
+            while Instant::now() < grace {
+                if let Ok(Some(_)) = child.try_wait() {
+                    break;
+                }
+                std::thread::sleep(Duration::from_millis(20));
+            }
             let _ = nix::sys::signal::killpg(pgid, nix::sys::signal::Signal::SIGKILL);
             let _ = child.wait();
             return (None, Outcome::Interrupted);

@@ -7,11 +7,13 @@
 //! Main types: [`RunBody`], [`RunState`], [`RunSet`].
 
 mod local;
+mod lock;
 pub mod parse;
 mod store;
 
-pub use local::{run_all, value_names, RunSummary};
+pub use local::{fingerprint, run_all, run_key, value_names, RunOptions, RunSummary, RunsError};
+pub use lock::{acquire as lock_campaign, CampaignLock, LockError};
 pub use store::{
-    load_runs, run_dir, run_record_path, status_counts, ExperimentRuns, RunBody, RunSet, RunState,
-    StateCounts,
+    load_runs, run_dir, run_record_path, status_counts, Attempt, ExperimentRuns, Fingerprint,
+    RunBody, RunSet, RunState, StateCounts,
 };

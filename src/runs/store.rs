@@ -28,6 +28,44 @@ pub struct Attempt {
     pub reason: Option<String>,
 }
 
+/// sha256 of each part of a run's definition, to tell what changed between invocations.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct Fingerprint {
+    /// `simulator.command` (before substitution).
+    pub command: String,
+    /// `simulator.files`: destinations and template texts.
+    pub files: String,
+    /// `simulator.output`.
+    pub output: String,
+    /// `simulator.env`.
+    pub env: String,
+    /// The experiment's settings.
+    pub settings: String,
+}
+
+impl Fingerprint {
+    /// Names of the parts that differ from `other`.
+    pub fn changed(&self, other: &Fingerprint) -> Vec<&'static str> {
+        let mut v = Vec::new();
+        if self.command != other.command {
+            v.push("simulator.command");
+        }
+        if self.files != other.files {
+            v.push("simulator.files (templates)");
+        }
+        if self.output != other.output {
+            v.push("simulator.output");
+        }
+        if self.env != other.env {
+            v.push("simulator.env");
+        }
+        if self.settings != other.settings {
+            v.push("experiments[].settings");
+        }
+        v
+    }
+}
+
 /// Body of `run.yaml`.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct RunBody {
@@ -51,6 +89,14 @@ pub struct RunBody {
     pub owner_pid: Option<u32>,
     /// Host of that process.
     pub owner_host: Option<String>,
+    /// When that process started the run.
+    #[serde(default)]
+    pub owner_started_utc: Option<String>,
+    /// The run's identity: sha256 of its fingerprint and parameter values.
+    #[serde(default)]
+    pub key: Option<String>,
+    #[serde(default)]
+    pub fingerprint: Option<Fingerprint>,
     /// Output values matched to the field stations (names in `value_names`).
     pub values: Option<Vec<f64>>,
     pub value_names: Vec<String>,

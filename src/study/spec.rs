@@ -70,6 +70,9 @@ pub struct SimulatorSpec {
     /// Extra attempts after a failure. Default 0.
     #[serde(default)]
     pub retries: u32,
+    /// Environment variables for the simulator (values may hold placeholders).
+    #[serde(default)]
+    pub env: BTreeMap<String, String>,
 }
 
 fn default_timeout() -> f64 {

@@ -61,6 +61,8 @@ pub struct Simulator {
     pub output: OutputSpec,
     pub timeout_s: f64,
     pub retries: u32,
+    /// Extra environment variables (values may hold placeholders).
+    pub env: BTreeMap<String, String>,
 }
 
 /// Measurement noise of one experiment.
@@ -375,6 +377,14 @@ pub fn parse(
     if sim.output.y.is_empty() {
         c.err("simulator.output.y", "name at least one output quantity");
     }
+    for name in sim.env.keys() {
+        if name.is_empty() || name.contains('=') || name.contains('\0') {
+            c.err(
+                format!("simulator.env.{name}"),
+                format!("`{name}` is not a valid environment variable name"),
+            );
+        }
+    }
     let mut files = Vec::new();
     for (i, f) in sim.files.iter().enumerate() {
         let key = format!("simulator.files[{i}]");
@@ -503,6 +513,16 @@ pub fn parse(
                 None,
             );
         }
+        for (name, value) in &sim.env {
+            check_placeholders(
+                &mut c,
+                &format!("simulator.env.{name}"),
+                value,
+                &known,
+                &e.name,
+                None,
+            );
+        }
         for (j, f) in files.iter().enumerate() {
             check_placeholders(
                 &mut c,
@@ -569,6 +589,7 @@ pub fn parse(
             },
             timeout_s: sim.timeout_s,
             retries: sim.retries,
+            env: sim.env.clone(),
         },
         experiments,
         design: DesignParams {

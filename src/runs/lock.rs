@@ -1,0 +1,75 @@
+//! One assay process per campaign: an advisory `flock` on `<campaign>/.lock`. The kernel
+//! releases it when the holder dies (even by kill -9), so a stale lock never blocks.
+
+use nix::fcntl::{Flock, FlockArg};
+use std::fs::{File, OpenOptions};
+use std::io::{Read, Seek, SeekFrom, Write};
+use std::path::{Path, PathBuf};
+
+/// The campaign is locked by another process.
+#[derive(Debug, thiserror::Error)]
+#[non_exhaustive]
+pub enum LockError {
+    #[error("the campaign {path} is in use by another assay process ({holder}); wait for it to finish or stop it")]
+    Held { path: PathBuf, holder: String },
+    #[error("cannot open the lock file {path}: {source}")]
+    Io {
+        path: PathBuf,
+        source: std::io::Error,
+    },
+}
+
+/// Held while a process works on a campaign; released on drop or death.
+#[derive(Debug)]
+pub struct CampaignLock {
+    _lock: Flock<File>,
+}
+
+/// Take the campaign's lock, or say who holds it.
+///
+/// # Errors
+/// [`LockError::Held`] naming the holder's host, pid, start time and command.
+pub fn acquire(campaign: &Path, command_line: &[String]) -> Result<CampaignLock, LockError> {
+    std::fs::create_dir_all(campaign).map_err(|source| LockError::Io {
+        path: campaign.to_path_buf(),
+        source,
+    })?;
+    let path = campaign.join(".lock");
+    let file = OpenOptions::new()
+        .read(true)
+        .write(true)
+        .create(true)
+        .truncate(false)
+        .open(&path)
+        .map_err(|source| LockError::Io {
+            path: path.clone(),
+            source,
+        })?;
+    match Flock::lock(file, FlockArg::LockExclusiveNonblock) {
+        Ok(mut lock) => {
+            let info = format!(
+                "host {} pid {} since {} command {}",
+                gethostname::gethostname().to_string_lossy(),
+                std::process::id(),
+                chrono::Utc::now().to_rfc3339_opts(chrono::SecondsFormat::Secs, true),
+                command_line.join(" ")
+            );
+            let _ = lock.set_len(0);
+            let _ = lock.seek(SeekFrom::Start(0));
+            let _ = lock.write_all(info.as_bytes());
+            let _ = lock.sync_all();
+            Ok(CampaignLock { _lock: lock })
+        }
+        Err((mut file, _)) => {
+            let mut holder = String::new();
+            let _ = file.read_to_string(&mut holder);
+            if holder.trim().is_empty() {
+                holder = "unknown holder".into();
+            }
+            Err(LockError::Held {
+                path: campaign.to_path_buf(),
+                holder: holder.trim().to_string(),
+            })
+        }
+    }
+}
