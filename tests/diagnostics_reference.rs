@@ -26,15 +26,34 @@ struct Fixture {
 
 #[test]
 fn rhat_and_ess_match_arviz() {
-    let text = std::fs::read_to_string(concat!(env!("CARGO_MANIFEST_DIR"), "/tests/reference/diagnostics.json")).unwrap();
+    let text = std::fs::read_to_string(concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/tests/reference/diagnostics.json"
+    ))
+    .unwrap();
     let f: Fixture = serde_json::from_str(&text).unwrap();
     assert_eq!(f.cases.len(), 5);
     for c in &f.cases {
         let r = rhat(&c.chains);
         let b = ess_bulk(&c.chains);
         let t = ess_tail(&c.chains);
-        assert!((r - c.rhat).abs() / c.rhat < RHAT_RTOL, "{}: rhat {r} vs {}", c.name, c.rhat);
-        assert!((b - c.ess_bulk).abs() / c.ess_bulk < ESS_RTOL, "{}: ess_bulk {b} vs {}", c.name, c.ess_bulk);
-        assert!((t - c.ess_tail).abs() / c.ess_tail < ESS_RTOL, "{}: ess_tail {t} vs {}", c.name, c.ess_tail);
+        assert!(
+            (r - c.rhat).abs() / c.rhat < RHAT_RTOL,
+            "{}: rhat {r} vs {}",
+            c.name,
+            c.rhat
+        );
+        assert!(
+            (b - c.ess_bulk).abs() / c.ess_bulk < ESS_RTOL,
+            "{}: ess_bulk {b} vs {}",
+            c.name,
+            c.ess_bulk
+        );
+        assert!(
+            (t - c.ess_tail).abs() / c.ess_tail < ESS_RTOL,
+            "{}: ess_tail {t} vs {}",
+            c.name,
+            c.ess_tail
+        );
     }
 }

@@ -37,7 +37,11 @@ fn matrix(rows: &[Vec<f64>]) -> Array2<f64> {
 }
 
 fn fixture() -> Fixture {
-    let text = std::fs::read_to_string(concat!(env!("CARGO_MANIFEST_DIR"), "/tests/reference/gp_lml.json")).unwrap();
+    let text = std::fs::read_to_string(concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/tests/reference/gp_lml.json"
+    ))
+    .unwrap();
     serde_json::from_str(&text).unwrap()
 }
 
@@ -48,15 +52,29 @@ fn gp_of(c: &Case) -> Gp {
         // assay's nugget is relative to σ²: η = g/σ².
         ln_nugget: c.noise_var.ln() - c.signal_var.ln(),
     };
-    Gp::fit(matrix(&c.x).view(), Array1::from(c.y.clone()).view(), Kernel::Matern52, Trend::Zero, hyper).unwrap()
+    Gp::fit(
+        matrix(&c.x).view(),
+        Array1::from(c.y.clone()).view(),
+        Kernel::Matern52,
+        Trend::Zero,
+        hyper,
+    )
+    .unwrap()
 }
 
 #[test]
 fn log_marginal_likelihood_matches_scikit_learn() {
     for c in fixture().cases {
         let gp = gp_of(&c);
-        let rel = (gp.ln_marginal_likelihood - c.ln_marginal_likelihood).abs() / c.ln_marginal_likelihood.abs().max(1.0);
-        assert!(rel < LML_RTOL, "{}: {} vs {}", c.name, gp.ln_marginal_likelihood, c.ln_marginal_likelihood);
+        let rel = (gp.ln_marginal_likelihood - c.ln_marginal_likelihood).abs()
+            / c.ln_marginal_likelihood.abs().max(1.0);
+        assert!(
+            rel < LML_RTOL,
+            "{}: {} vs {}",
+            c.name,
+            gp.ln_marginal_likelihood,
+            c.ln_marginal_likelihood
+        );
     }
 }
 
@@ -69,7 +87,13 @@ fn gradient_matches_scikit_learn() {
         let last = g.len() - 1;
         g[0] -= g[last];
         for (k, want) in c.grad_ln_params.iter().enumerate() {
-            assert!((g[k] - want).abs() < GRAD_ATOL * want.abs().max(1.0), "{} [{k}]: {} vs {}", c.name, g[k], want);
+            assert!(
+                (g[k] - want).abs() < GRAD_ATOL * want.abs().max(1.0),
+                "{} [{k}]: {} vs {}",
+                c.name,
+                g[k],
+                want
+            );
         }
     }
 }
@@ -83,7 +107,13 @@ fn prediction_matches_scikit_learn() {
             assert!((m[i] - c.mean[i]).abs() < PRED_ATOL, "{} mean[{i}]", c.name);
             // Our variance is of the latent f plus nothing: scikit-learn's sd with alpha
             // outside the kernel is the same quantity.
-            assert!((v[i].sqrt() - c.sd[i]).abs() < 1e-6, "{} sd[{i}]: {} vs {}", c.name, v[i].sqrt(), c.sd[i]);
+            assert!(
+                (v[i].sqrt() - c.sd[i]).abs() < 1e-6,
+                "{} sd[{i}]: {} vs {}",
+                c.name,
+                v[i].sqrt(),
+                c.sd[i]
+            );
         }
     }
 }

@@ -310,6 +310,7 @@ fn run_one(
         owner_pid: None,
         owner_host: None,
         owner_started_utc: None,
+        child_pid: None,
         key: None,
         fingerprint: None,
         values: None,
@@ -321,6 +322,22 @@ fn run_one(
     body.value_names = value_names(study, e);
     body.fingerprint = Some(fp.clone());
     body.key = Some(run_key(fp, &point.values));
+
+    if body.state == RunState::Running {
+        // Left `running` by an assay process that died (we hold the campaign lock, so no
+        // live process owns it). Its simulator may still be running or may have finished.
+        if let Some(state) = recover(study, e, &mut body, &dir, stop) {
+            let mut clock = ProvenanceClock::start(command_line.to_vec());
+            if let Some(sha) = &body.outputs_sha256 {
+                clock.input_hash(&study.simulator.output.file, sha);
+            }
+            write_record(
+                &record_path,
+                &Record::new("run", clock.finish(), body.clone()),
+            )?;
+            return Ok(state);
+        }
+    }
 
     let max_attempts = 1 + study.simulator.retries;
     for _ in 0..max_attempts {
@@ -339,7 +356,16 @@ fn run_one(
 
         let started = now();
         let t0 = Instant::now();
-        let (exit_code, outcome) = attempt(study, e, &argv, &env, &dir, stop);
+        let on_spawn = |pid: u32| -> Result<()> {
+            let mut b = body.clone();
+            b.child_pid = Some(pid);
+            write_record(
+                &record_path,
+                &Record::new("run", clock_snapshot(command_line), b),
+            )
+        };
+        let (exit_code, outcome) = attempt(study, e, &argv, &env, &dir, stop, &on_spawn);
+        body.child_pid = None;
         let elapsed = t0.elapsed().as_secs_f64();
         body.exit_code = exit_code;
         body.elapsed_s = Some(elapsed);
@@ -404,6 +430,95 @@ fn clock_snapshot(command_line: &[String]) -> crate::record::Provenance {
     ProvenanceClock::start(command_line.to_vec()).finish()
 }
 
+/// How often a recovering run checks whether an orphaned simulator has exited.
+const ORPHAN_POLL: Duration = Duration::from_millis(50);
+
+/// Finish the bookkeeping of an attempt whose assay process died.
+///
+/// An orphaned simulator that is still running is waited for (up to the rest of its
+/// `timeout_s`, then killed), never started a second time. When it is gone, an output
+/// file written during that attempt that parses and matches the stations is adopted:
+/// the run becomes `done` with an unknown exit code. Otherwise the attempt is recorded
+/// as lost and `None` says the run must be started again.
+fn recover(
+    study: &Study,
+    e: &Experiment,
+    body: &mut RunBody,
+    dir: &Path,
+    stop: &AtomicBool,
+) -> Option<RunState> {
+    let started = body
+        .owner_started_utc
+        .as_deref()
+        .and_then(|t| chrono::DateTime::parse_from_rfc3339(t).ok())
+        .map(|t| t.with_timezone(&Utc));
+    if let Some(pid) = body.child_pid {
+        let pgid = nix::unistd::Pid::from_raw(pid as i32);
+        let deadline = started.map(|t| {
+            t + chrono::Duration::milliseconds((study.simulator.timeout_s * 1000.0) as i64)
+        });
+        while nix::sys::signal::killpg(pgid, None).is_ok() {
+            if stop.load(Ordering::SeqCst) {
+                return Some(RunState::Running);
+            }
+            if deadline.map(|d| Utc::now() > d).unwrap_or(true) {
+                let _ = nix::sys::signal::killpg(pgid, nix::sys::signal::Signal::SIGKILL);
+                break;
+            }
+            std::thread::sleep(ORPHAN_POLL);
+        }
+    }
+    let out_path = dir.join(&study.simulator.output.file);
+    let written_after_start = match (
+        std::fs::metadata(&out_path).and_then(|m| m.modified()),
+        started,
+    ) {
+        (Ok(m), Some(s)) => chrono::DateTime::<Utc>::from(m) >= s,
+        _ => false,
+    };
+    let started_utc = body.owner_started_utc.clone().unwrap_or_default();
+    body.owner_pid = None;
+    body.owner_host = None;
+    body.owner_started_utc = None;
+    body.child_pid = None;
+    if written_after_start {
+        let sim = &study.simulator;
+        let parsed = std::fs::read_to_string(&out_path)
+            .map_err(|e| e.to_string())
+            .and_then(|t| {
+                parse_output(
+                    &t,
+                    sim.output.format,
+                    sim.output.x.as_deref(),
+                    &sim.output.y,
+                )
+            })
+            .and_then(|p| match_stations(&p, &e.data.stations()));
+        if let (Ok(values), Ok(sha)) = (parsed, sha256_file(&out_path)) {
+            body.state = RunState::Done;
+            body.reason = None;
+            body.exit_code = None;
+            body.values = Some(values);
+            body.outputs_sha256 = Some(sha);
+            body.history.push(Attempt {
+                started_utc,
+                elapsed_s: 0.0,
+                exit_code: None,
+                reason: Some("recovered: the simulator finished after assay died; its output was adopted (exit code unknown)".into()),
+            });
+            return Some(RunState::Done);
+        }
+    }
+    body.history.push(Attempt {
+        started_utc,
+        elapsed_s: 0.0,
+        exit_code: None,
+        reason: Some("lost: assay died during this attempt and no complete output was left".into()),
+    });
+    body.state = RunState::Pending;
+    None
+}
+
 /// Time a simulator gets to exit after SIGTERM on interruption before SIGKILL.
 const TERM_GRACE: Duration = Duration::from_secs(5);
 
@@ -418,6 +533,7 @@ enum Outcome {
 }
 
 /// One attempt: start, wait with timeout (or interruption), parse.
+#[allow(clippy::too_many_arguments)] // one attempt's whole context; called from one place
 fn attempt(
     study: &Study,
     e: &Experiment,
@@ -425,6 +541,7 @@ fn attempt(
     env: &[(String, String)],
     dir: &Path,
     stop: &AtomicBool,
+    on_spawn: &dyn Fn(u32) -> Result<()>,
 ) -> (Option<i32>, Outcome) {
     let sim = &study.simulator;
     let out_path = dir.join(&sim.output.file);
@@ -467,6 +584,17 @@ fn attempt(
             )
         }
     };
+    if let Err(err) = on_spawn(child.id()) {
+        // Without the child's pid on record a crash of assay could not be recovered:
+        // stop this attempt rather than run unrecorded.
+        let pgid = nix::unistd::Pid::from_raw(child.id() as i32);
+        let _ = nix::sys::signal::killpg(pgid, nix::sys::signal::Signal::SIGKILL);
+        let _ = child.wait();
+        return (
+            None,
+            Outcome::Failed(format!("cannot record the simulator's pid: {err:#}")),
+        );
+    }
     let deadline = Instant::now() + Duration::from_secs_f64(sim.timeout_s);
     let mut pause = Duration::from_millis(2);
     let status = loop {

@@ -3,7 +3,7 @@
 
 use nix::fcntl::{Flock, FlockArg};
 use std::fs::{File, OpenOptions};
-use std::io::{Read, Seek, SeekFrom, Write};
+use std::io::Read;
 use std::path::{Path, PathBuf};
 
 /// The campaign is locked by another process.
@@ -17,6 +17,11 @@ pub enum LockError {
         path: PathBuf,
         source: std::io::Error,
     },
+}
+
+/// Where the lock holder describes itself.
+pub fn holder_path(campaign: &Path) -> PathBuf {
+    campaign.join(".lock-holder")
 }
 
 /// Held while a process works on a campaign; released on drop or death.
@@ -46,7 +51,7 @@ pub fn acquire(campaign: &Path, command_line: &[String]) -> Result<CampaignLock,
             source,
         })?;
     match Flock::lock(file, FlockArg::LockExclusiveNonblock) {
-        Ok(mut lock) => {
+        Ok(lock) => {
             let info = format!(
                 "host {} pid {} since {} command {}",
                 gethostname::gethostname().to_string_lossy(),
@@ -54,15 +59,16 @@ pub fn acquire(campaign: &Path, command_line: &[String]) -> Result<CampaignLock,
                 chrono::Utc::now().to_rfc3339_opts(chrono::SecondsFormat::Secs, true),
                 command_line.join(" ")
             );
-            let _ = lock.set_len(0);
-            let _ = lock.seek(SeekFrom::Start(0));
-            let _ = lock.write_all(info.as_bytes());
-            let _ = lock.sync_all();
+            // The holder line goes to its own file, replaced atomically, so a reader never
+            // sees it half written.
+            let _ = crate::record::write_atomic(&holder_path(campaign), info.as_bytes());
             Ok(CampaignLock { _lock: lock })
         }
-        Err((mut file, _)) => {
+        Err(_) => {
             let mut holder = String::new();
-            let _ = file.read_to_string(&mut holder);
+            if let Ok(mut f) = File::open(holder_path(campaign)) {
+                let _ = f.read_to_string(&mut holder);
+            }
             if holder.trim().is_empty() {
                 holder = "unknown holder".into();
             }

@@ -92,6 +92,9 @@ pub struct RunBody {
     /// When that process started the run.
     #[serde(default)]
     pub owner_started_utc: Option<String>,
+    /// Process (and process group) id of the simulator of a `running` run.
+    #[serde(default)]
+    pub child_pid: Option<u32>,
     /// The run's identity: sha256 of its fingerprint and parameter values.
     #[serde(default)]
     pub key: Option<String>,

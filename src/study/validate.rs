@@ -202,12 +202,35 @@ pub(crate) fn is_contained_relative(p: &str) -> bool {
             .all(|c| matches!(c, Component::Normal(_) | Component::CurDir))
 }
 
-/// Split serde_yaml's " at line N column M" off a message.
-fn split_location(msg: &str) -> String {
-    match msg.rfind(" at line ") {
-        Some(i) => msg[..i].to_string(),
-        None => msg.to_string(),
+/// Remove every " at line N column M" serde_yaml puts in its messages (the line is
+/// reported separately).
+fn strip_locations(msg: &str) -> String {
+    let mut out = msg.to_string();
+    while let Some(i) = out.find(" at line ") {
+        let rest = &out[i + " at line ".len()..];
+        let digits = rest.chars().take_while(|c| c.is_ascii_digit()).count();
+        let mut end = i + " at line ".len() + digits;
+        if out[end..].starts_with(" column ") {
+            end += " column ".len();
+            end += out[end..]
+                .chars()
+                .take_while(|c| c.is_ascii_digit())
+                .count();
+        }
+        out.replace_range(i..end, "");
     }
+    out
+}
+
+/// The key named by an "unknown field `x`" message, appended to its parent's path.
+fn unknown_key_path(parent: &str, message: &str) -> Option<String> {
+    let rest = message.strip_prefix("unknown field `")?;
+    let name = &rest[..rest.find('`')?];
+    Some(if parent.is_empty() {
+        name.to_string()
+    } else {
+        format!("{parent}.{name}")
+    })
 }
 
 /// Check the study `text` of file `file`; relative paths resolve against `dir`, files
@@ -226,7 +249,7 @@ pub fn parse(
         Err(e) => {
             let line = e.location().map(|l| l.line());
             let full = e.to_string();
-            let msg = split_location(&full);
+            let msg = strip_locations(&full);
             // serde_yaml writes "path: message" when it knows the path.
             let (key, message) = match msg.split_once(": ") {
                 Some((k, m))
@@ -239,6 +262,7 @@ pub fn parse(
                 }
                 _ => (String::new(), msg),
             };
+            let key = unknown_key_path(&key, &message).unwrap_or(key);
             let message = message.replace("unknown field", "unknown key");
             return Err(StudyErrors(vec![StudyError {
                 file: file.to_path_buf(),
