@@ -2,7 +2,7 @@
 #   make demo   build, ensure OpenBLAS, run the bundled example end to end into runs/
 #   make test   the whole test suite
 CARGO ?= cargo
-STUDY ?= models/cantilever/study.yaml
+STUDY ?= models/tensile-bar/study.yaml
 
 .PHONY: demo test build openblas lint clean-runs
 
@@ -29,7 +29,8 @@ build: openblas
 demo: build
 	./target/release/assay all $(STUDY)
 	@echo
-	@echo "Results: runs/cantilever/ (design.yaml, runs/, surrogate.yaml, posterior.yaml, posterior-samples.csv)"
+	@echo "Results: runs/tensile-bar/ (design.yaml, runs/, surrogate.yaml, posterior.yaml, posterior-samples.csv)"
+	@echo "Quick example: ./target/release/assay all models/cantilever/study.yaml"
 	@echo "Again:   ./target/release/assay all $(STUDY)   (finished stages are reused)"
 
 # The example simulator binary is built first: the end-to-end test runs it as an

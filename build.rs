@@ -9,7 +9,20 @@ fn main() {
         .filter(|o| o.status.success())
         .map(|o| String::from_utf8_lossy(&o.stdout).trim().to_string())
         .unwrap_or_default();
+    // Mark builds from a tree with uncommitted changes to tracked files.
+    let dirty = !commit.is_empty()
+        && Command::new("git")
+            .args(["status", "--porcelain", "--untracked-files=no"])
+            .output()
+            .map(|o| !o.stdout.is_empty())
+            .unwrap_or(false);
+    let commit = if dirty {
+        format!("{commit}-dirty")
+    } else {
+        commit
+    };
     println!("cargo:rustc-env=ASSAY_GIT_COMMIT={commit}");
     println!("cargo:rerun-if-changed=.git/HEAD");
     println!("cargo:rerun-if-changed=.git/refs/heads");
+    println!("cargo:rerun-if-changed=.git/index");
 }

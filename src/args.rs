@@ -38,7 +38,7 @@ pub enum Command {
     Validate(StudyArg),
     /// Write the design (design.yaml): where the simulator will run.
     #[command(
-        after_help = "Example:\n  assay design models/cantilever/study.yaml\n\nAn existing design made with the same settings is kept."
+        after_help = "Examples:\n  assay design models/cantilever/study.yaml\n  assay design --add 10 models/cantilever/study.yaml\n\nAn existing design made with the same settings is kept. --add appends points to it\n(a new round in design.yaml); `assay run` then runs only the new points."
     )]
     Design(DesignArgs),
     /// Run every pending or failed run of the design.
@@ -57,6 +57,11 @@ pub enum Command {
         after_help = "Example:\n  assay calibrate models/cantilever/study.yaml\n\nCtrl-C stops sampling and keeps the draws made so far (recorded as interrupted)."
     )]
     Calibrate(StudyArg),
+    /// Surrogate mean and sd at given points (CSV to stdout or --out).
+    #[command(
+        after_help = "Example:\n  assay predict models/cantilever/study.yaml --at points.csv --out predictions.csv\n\nPOINTS.csv has a header naming every parameter; the output has the parameters, then\nEXP.Y.mean and EXP.Y.sd per experiment and output (curves: EXP.Y@X.mean, EXP.Y@X.sd)."
+    )]
+    Predict(PredictArgs),
     /// Every stage in order, reusing stages whose inputs are unchanged.
     #[command(after_help = "Example:\n  assay all models/cantilever/study.yaml")]
     All(RunArgs),
@@ -70,12 +75,28 @@ pub struct StudyArg {
 }
 
 #[derive(Debug, Args)]
+pub struct PredictArgs {
+    #[command(flatten)]
+    pub study: StudyArg,
+    /// CSV of points: a header naming every parameter, one point per row.
+    #[arg(long, value_name = "POINTS.csv")]
+    pub at: PathBuf,
+    /// Write the predictions here instead of stdout.
+    #[arg(long, value_name = "FILE.csv")]
+    pub out: Option<PathBuf>,
+}
+
+#[derive(Debug, Args)]
 pub struct DesignArgs {
     #[command(flatten)]
     pub study: StudyArg,
     /// Replace an existing design even if it was made with other settings.
-    #[arg(long)]
+    #[arg(long, conflicts_with = "add")]
     pub force: bool,
+    /// Add N points that fill the gaps of the existing design (ids, values and runs of
+    /// the existing points stay as they are).
+    #[arg(long, value_name = "N", value_parser = clap::value_parser!(u32).range(1..))]
+    pub add: Option<u32>,
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]

@@ -86,15 +86,17 @@ fn design_mismatch(study: &Study, existing: &Design) -> Option<String> {
             study.parameter_names()
         ));
     }
-    if existing.method != s.method || existing.seed != s.seed || existing.points.len() != s.points {
+    // Points added later (`assay design --add`) do not count: the first round is what
+    // `design.points` asked for.
+    let n0 = existing.initial_size();
+    if existing.method != s.method
+        || existing.seed != s.seed
+        || n0 != s.points
+        || existing.space != s.space
+    {
         return Some(format!(
-            "it was made with method {:?}, seed {}, {} points; the study asks for {:?}, seed {}, {} points",
-            existing.method,
-            existing.seed,
-            existing.points.len(),
-            s.method,
-            s.seed,
-            s.points
+            "it was made with method {:?}, seed {}, {} points, space {:?}; the study asks for {:?}, seed {}, {} points, space {:?}",
+            existing.method, existing.seed, n0, existing.space, s.method, s.seed, s.points, s.space
         ));
     }
     for p in &existing.points {
@@ -132,19 +134,52 @@ pub fn write_design(c: &Campaign, force: bool) -> Result<(Design, DesignOutcome)
     let mut clock = c.clock();
     c.hash_study_inputs(&mut clock)?;
     clock.seed("design", c.study.design.seed);
-    let mut rng = crate::rng::stream(c.study.design.seed, 0);
-    let d = design::generate(
-        &c.study.parameters,
-        c.study.design.method,
-        c.study.design.points,
-        c.study.design.seed,
-        &mut rng,
-    );
+    let d = design::generate(&c.study.parameters, &c.study.design)
+        .map_err(|e| InputError(format!("cannot make the design: {e}")))?;
     write_record(
         &path,
         &Record::new("design", clock.finish(), DesignBody::from(&d)),
     )?;
     Ok((d, DesignOutcome::Created))
+}
+
+/// Add `n` points to the existing `design.yaml` (`assay design --add N`): the existing
+/// points keep their ids and values, the new ones fill the gaps, the round is recorded.
+/// Runs are not touched; the new points' runs are pending.
+///
+/// # Errors
+/// No design yet, a design that does not match the study (changed parameters or
+/// design settings), or I/O. All but I/O are bad input (exit 2).
+pub fn augment_design(c: &Campaign, n: usize) -> Result<Design> {
+    let path = c.path(DESIGN_FILE);
+    if !path.exists() {
+        return Err(InputError(format!(
+            "cannot add points: there is no design at {} yet; run `assay design {}` first",
+            path.display(),
+            c.study.file.display()
+        ))
+        .into());
+    }
+    let existing = load_design(c)?;
+    if let Some(why) = design_mismatch(&c.study, &existing) {
+        return Err(InputError(format!(
+            "cannot add points: {} does not match the study: {why}. Restore the study's settings, or start a new design with `assay design --force`",
+            path.display()
+        ))
+        .into());
+    }
+    let mut clock = c.clock();
+    // The previous design.yaml is not listed among the inputs: it is overwritten here,
+    // so its hash could never be checked again; its points and rounds are kept instead.
+    c.hash_study_inputs(&mut clock)?;
+    clock.seed("design", existing.seed);
+    let d = design::augment(&existing, &c.study.parameters, n)
+        .map_err(|e| InputError(format!("cannot add points: {e}")))?;
+    write_record(
+        &path,
+        &Record::new("design", clock.finish(), DesignBody::from(&d)),
+    )?;
+    Ok(d)
 }
 
 /// Read `design.yaml`.
@@ -247,13 +282,18 @@ pub fn status(c: &Campaign) -> Result<StatusReport> {
 }
 
 /// Fit the surrogate to the finished runs and write `surrogate.yaml`.
-pub fn fit_stage(c: &Campaign) -> Result<FittedSurrogate> {
+pub fn fit_stage(c: &Campaign) -> Result<(FittedSurrogate, BTreeMap<String, usize>)> {
     let design = load_design(c)?;
     let mut clock = c.clock();
     c.hash_study_inputs(&mut clock)?;
-    clock.input(&c.path(DESIGN_FILE))?;
+    clock.input_named(DESIGN_FILE, &c.path(DESIGN_FILE))?;
     let (set, _) = runs::load_runs(&c.study, &design, &c.dir)?;
+    let mut excluded = BTreeMap::new();
     for er in &set.experiments {
+        excluded.insert(
+            er.experiment.clone(),
+            design.points.len() - er.point_ids.len(),
+        );
         for (id, h) in er.point_ids.iter().zip(&er.record_sha256) {
             clock.input_hash(&format!("runs/{id}/{}/run.yaml", er.experiment), h);
         }
@@ -261,12 +301,15 @@ pub fn fit_stage(c: &Campaign) -> Result<FittedSurrogate> {
     let seed = c.study.surrogate.seed;
     clock.seed("surrogate", seed);
     let fitted = fit_surrogate(&set, &c.study.parameters, c.study.surrogate, seed)?;
-    let body = SurrogateBody::from_fitted(&fitted, &c.study.parameter_names());
+    let mut body = SurrogateBody::from_fitted(&fitted, &c.study.parameter_names());
+    for e in &mut body.experiments {
+        e.n_excluded = excluded.get(&e.name).copied().unwrap_or(0);
+    }
     write_record(
         &c.path(SURROGATE_FILE),
         &Record::new("surrogate", clock.finish(), body),
     )?;
-    Ok(fitted)
+    Ok((fitted, excluded))
 }
 
 /// Validation of each experiment's surrogate, for printing.
@@ -299,7 +342,7 @@ pub fn calibrate_stage(
     }
     let mut clock = c.clock();
     c.hash_study_inputs(&mut clock)?;
-    clock.input(&spath)?;
+    clock.input_named(SURROGATE_FILE, &spath)?;
     let rec: Record<SurrogateBody> = read_record(&spath)?;
     let fitted = rec.body.to_fitted()?;
     let mut experiments: Vec<(&dyn Emulator, ExperimentLikelihood)> = Vec::new();
@@ -342,20 +385,31 @@ pub fn calibrate_stage(
     let post = LogPosterior::new(c.study.parameters.clone(), experiments);
     let chains = sample(&post, &params, stop, observer);
     let names = c.study.parameter_names();
-    let summary = summarize(&names, &chains);
+    let noise_names = post.noise_names();
+    let summary = summarize(&names, &noise_names, &chains);
     let n_eval = post
         .n_evaluations
         .load(std::sync::atomic::Ordering::Relaxed);
 
+    // Contract: chain,draw,<parameters...>,<noise...>,log_posterior, one noise sd column
+    // `noise_sd.<experiment>` per estimated noise.
     let mut csv = csv::Writer::from_writer(Vec::new());
     let mut header = vec!["chain".to_string(), "draw".to_string()];
     header.extend(names.iter().cloned());
+    header.extend(noise_names.iter().map(|e| format!("noise_sd.{e}")));
     header.push("log_posterior".into());
     csv.write_record(&header)?;
     for ch in &chains {
-        for (i, (th, lp)) in ch.theta.iter().zip(&ch.ln_posterior).enumerate() {
+        for (i, ((th, nv), lp)) in ch
+            .theta
+            .iter()
+            .zip(&ch.noise_var)
+            .zip(&ch.ln_posterior)
+            .enumerate()
+        {
             let mut row = vec![ch.index.to_string(), i.to_string()];
             row.extend(th.iter().map(|v| format!("{v}")));
+            row.extend(nv.iter().map(|v| format!("{}", v.sqrt())));
             row.push(format!("{lp}"));
             csv.write_record(&row)?;
         }
@@ -364,9 +418,7 @@ pub fn calibrate_stage(
     let samples_path = c.path(SAMPLES_FILE);
     write_atomic(&samples_path, &bytes)?;
     let body = PosteriorBody::new(&summary, &chains, &params, n_eval);
-    let mut prov = clock.finish();
-    prov.inputs.remove(SAMPLES_FILE);
-    let mut record = Record::new("posterior", prov, body);
+    let mut record = Record::new("posterior", clock.finish(), body);
     record.body.samples_sha256 = Some(sha256_file(&samples_path)?);
     write_record(&c.path(POSTERIOR_FILE), &record)?;
     Ok(summary)
@@ -407,4 +459,109 @@ pub fn calibrate_inputs(c: &Campaign) -> Vec<PathBuf> {
     let mut v = c.study.input_files();
     v.push(c.path(SURROGATE_FILE));
     v
+}
+
+/// Parse prediction points: a CSV whose header names every parameter (any order).
+///
+/// # Errors
+/// [`InputError`] naming the file and line of a missing column or a bad number.
+pub fn parse_points(text: &str, file: &Path, names: &[String]) -> Result<Vec<Vec<f64>>> {
+    let bad = |line: usize, msg: String| InputError(format!("{}:{line}: {msg}", file.display()));
+    let mut r = csv::ReaderBuilder::new()
+        .trim(csv::Trim::All)
+        .from_reader(text.as_bytes());
+    let headers = r
+        .headers()
+        .map_err(|e| bad(1, format!("cannot read the header: {e}")))?
+        .clone();
+    let mut idx = Vec::new();
+    for n in names {
+        let i = headers.iter().position(|h| h == n).ok_or_else(|| {
+            bad(
+                1,
+                format!(
+                    "no column `{n}` (the header must name every parameter: {})",
+                    names.join(", ")
+                ),
+            )
+        })?;
+        idx.push(i);
+    }
+    let mut out = Vec::new();
+    for (k, rec) in r.records().enumerate() {
+        let line = k + 2;
+        let rec = rec.map_err(|e| bad(line, format!("malformed row: {e}")))?;
+        let mut row = Vec::with_capacity(idx.len());
+        for (&i, n) in idx.iter().zip(names) {
+            let s = rec.get(i).unwrap_or("");
+            let v: f64 = s
+                .parse()
+                .map_err(|_| bad(line, format!("`{s}` in column `{n}` is not a number")))?;
+            if !v.is_finite() {
+                return Err(bad(line, format!("`{s}` in column `{n}` is not finite")).into());
+            }
+            row.push(v);
+        }
+        out.push(row);
+    }
+    if out.is_empty() {
+        return Err(bad(1, "no points (the file has a header but no rows)".into()).into());
+    }
+    Ok(out)
+}
+
+/// Surrogate mean and sd at `points`, as CSV: the parameters, then for every experiment
+/// and output value `EXP.Y.mean`, `EXP.Y.sd` (curves: `EXP.Y@X.mean`, `EXP.Y@X.sd`).
+/// Also returns how many points lie outside the parameter box (extrapolation).
+pub fn predict_csv(c: &Campaign, points: &[Vec<f64>]) -> Result<(Vec<u8>, usize)> {
+    use rayon::prelude::*;
+    let spath = c.path(SURROGATE_FILE);
+    if !spath.exists() {
+        bail!(
+            "no surrogate at {}: run `assay fit {}` first",
+            spath.display(),
+            c.study.file.display()
+        );
+    }
+    let rec: Record<SurrogateBody> = read_record(&spath)?;
+    let fitted = rec.body.to_fitted()?;
+    let names = c.study.parameter_names();
+    let mut header = names.clone();
+    for e in &fitted.experiments {
+        for o in &e.outputs {
+            header.push(format!("{}.{}.mean", e.experiment, o.name));
+            header.push(format!("{}.{}.sd", e.experiment, o.name));
+        }
+    }
+    let rows: Vec<Vec<String>> = points
+        .par_iter()
+        .map(|p| {
+            let mut row: Vec<String> = p.iter().map(|v| format!("{v}")).collect();
+            for e in &fitted.experiments {
+                let (m, v) = e.predict(p);
+                for (mi, vi) in m.iter().zip(&v) {
+                    row.push(format!("{mi}"));
+                    row.push(format!("{}", vi.sqrt()));
+                }
+            }
+            row
+        })
+        .collect();
+    let outside = points
+        .iter()
+        .filter(|p| {
+            p.iter()
+                .zip(&c.study.parameters)
+                .any(|(v, par)| *v < par.lo || *v > par.hi)
+        })
+        .count();
+    let mut w = csv::Writer::from_writer(Vec::new());
+    w.write_record(&header)?;
+    for r in rows {
+        w.write_record(&r)?;
+    }
+    Ok((
+        w.into_inner().context("cannot write the predictions")?,
+        outside,
+    ))
 }

@@ -22,6 +22,18 @@ use std::sync::{Arc, OnceLock};
 /// Set by Ctrl-C: stages stop at the next safe point and keep what they finished.
 static STOP: OnceLock<Arc<AtomicBool>> = OnceLock::new();
 
+/// True while a stage that honours [`STOP`] runs (runs, sampling). Elsewhere Ctrl-C ends
+/// the process at once: records are written atomically, so nothing half-written remains.
+static INTERRUPTIBLE: AtomicBool = AtomicBool::new(false);
+
+/// Run `f` with Ctrl-C handled by stopping cleanly instead of exiting.
+fn interruptible<T>(f: impl FnOnce() -> T) -> T {
+    INTERRUPTIBLE.store(true, Ordering::SeqCst);
+    let r = f();
+    INTERRUPTIBLE.store(false, Ordering::SeqCst);
+    r
+}
+
 fn stop_flag() -> &'static AtomicBool {
     STOP.get_or_init(|| Arc::new(AtomicBool::new(false)))
 }
@@ -190,6 +202,23 @@ fn print_summary(s: &Study, c: &Campaign) {
     );
 }
 
+/// Quality of a design and its warnings (warnings also with --quiet: they are about the
+/// result, not progress).
+fn print_design_quality(d: &assay::design::Design) {
+    if let Some(q) = &d.quality {
+        out!(
+            "  quality (unit box): min distance {}, phi_p {}, CD² {}, max |correlation| {}",
+            sig(q.min_distance, 4),
+            sig(q.phi_p, 4),
+            sig(q.cl2_discrepancy, 4),
+            sig(q.max_abs_correlation, 3)
+        );
+    }
+    for w in &d.warnings {
+        eprintln!("warning: {w}");
+    }
+}
+
 fn print_status(c: &Campaign) -> Result<()> {
     let s = campaign::status(c)?;
     out!(
@@ -279,7 +308,10 @@ fn print_posterior(c: &Campaign) -> Result<()> {
     Ok(())
 }
 
-fn print_fit(s: &assay::surrogate::FittedSurrogate) {
+fn print_fit(
+    s: &assay::surrogate::FittedSurrogate,
+    excluded: &std::collections::BTreeMap<String, usize>,
+) {
     out!(
         "surrogate ({} kernel, {} mean), leave-one-out validation:",
         s.kernel.name(),
@@ -302,6 +334,14 @@ fn print_fit(s: &assay::surrogate::FittedSurrogate) {
             v.q2,
             v.coverage95
         );
+    }
+    for (e, n) in excluded.iter().filter(|(_, n)| **n > 0) {
+        out!("  {e}: {n} design points without a finished run were left out (see `assay status`)");
+    }
+    for e in &s.experiments {
+        if let Some(w) = e.validation.verdict() {
+            out!("  warning: {}: {w}", e.experiment);
+        }
     }
 }
 
@@ -329,6 +369,7 @@ fn execute(cli: &Cli) -> Result<bool> {
             (&a.study, ())
         }
         Command::Design(a) => (&a.study.study, ()),
+        Command::Predict(a) => (&a.study.study, ()),
         Command::Run(a) | Command::All(a) => (&a.study.study, ()),
     };
     let study = load_study(study_path)?;
@@ -341,31 +382,72 @@ fn execute(cli: &Cli) -> Result<bool> {
         }
         Command::Design(a) => {
             let _lock = campaign::lock(&c)?;
-            let (d, how) = campaign::write_design(&c, a.force)?;
-            let verb = if how == DesignOutcome::Kept {
-                "kept (same settings)"
-            } else {
-                "written"
+            let (d, verb) = match a.add {
+                Some(n) => (
+                    campaign::augment_design(&c, n as usize)?,
+                    format!("({n} added)"),
+                ),
+                None => {
+                    let (d, how) = campaign::write_design(&c, a.force)?;
+                    let verb = if how == DesignOutcome::Kept {
+                        "kept (same settings)"
+                    } else {
+                        "written"
+                    };
+                    (d, verb.to_string())
+                }
             };
             out!(
                 "design: {} points {verb} — {}",
                 d.points.len(),
                 c.path(campaign::DESIGN_FILE).display()
             );
+            print_design_quality(&d);
         }
         Command::Run(a) => {
             let _lock = campaign::lock(&c)?;
-            let s = campaign::run_stage(&c, plan::run_options(a, &c.study), stop, obs.as_ref())?;
+            let s = interruptible(|| {
+                campaign::run_stage(&c, plan::run_options(a, &c.study), stop, obs.as_ref())
+            })?;
             report_runs(&s);
             some_failed = s.failed > 0;
         }
         Command::Status(_) => print_status(&c)?,
+        Command::Predict(a) => {
+            let text = std::fs::read_to_string(&a.at)
+                .map_err(|e| InputError(format!("cannot read {}: {e}", a.at.display())))?;
+            let points = campaign::parse_points(&text, &a.at, &c.study.parameter_names())?;
+            let (bytes, outside) = campaign::predict_csv(&c, &points)?;
+            if outside > 0 && !cli.quiet {
+                eprintln!("warning: {outside} of {} points lie outside the parameter box: the surrogate extrapolates there", points.len());
+            }
+            match &a.out {
+                Some(path) => {
+                    assay::record::write_atomic(path, &bytes)?;
+                    if !cli.quiet {
+                        eprintln!(
+                            "predictions for {} points written to {}",
+                            points.len(),
+                            path.display()
+                        );
+                    }
+                }
+                None => {
+                    let mut o = std::io::stdout().lock();
+                    if let Err(e) = o.write_all(&bytes) {
+                        if e.kind() != std::io::ErrorKind::BrokenPipe {
+                            return Err(e.into());
+                        }
+                    }
+                }
+            }
+        }
         Command::Fit(_) => {
-            let s = campaign::fit_stage(&c)?;
-            print_fit(&s);
+            let (s, excluded) = campaign::fit_stage(&c)?;
+            print_fit(&s, &excluded);
         }
         Command::Calibrate(_) => {
-            campaign::calibrate_stage(&c, stop, obs.as_ref())?;
+            interruptible(|| campaign::calibrate_stage(&c, stop, obs.as_ref()))?;
             print_posterior(&c)?;
         }
         Command::All(a) => {
@@ -377,7 +459,9 @@ fn execute(cli: &Cli) -> Result<bool> {
                 "written"
             };
             out!("design: {} points {verb}", d.points.len());
-            let s = campaign::run_stage(&c, plan::run_options(a, &c.study), stop, obs.as_ref())?;
+            let s = interruptible(|| {
+                campaign::run_stage(&c, plan::run_options(a, &c.study), stop, obs.as_ref())
+            })?;
             report_runs(&s);
             some_failed = s.failed > 0;
             if stop.load(Ordering::SeqCst) {
@@ -387,8 +471,8 @@ fn execute(cli: &Cli) -> Result<bool> {
                 &c.path(campaign::SURROGATE_FILE),
                 &campaign::fit_inputs(&c)?,
             ) {
-                let s = campaign::fit_stage(&c)?;
-                print_fit(&s);
+                let (s, excluded) = campaign::fit_stage(&c)?;
+                print_fit(&s, &excluded);
             } else {
                 out!("surrogate: up to date");
             }
@@ -396,7 +480,7 @@ fn execute(cli: &Cli) -> Result<bool> {
                 &c.path(campaign::POSTERIOR_FILE),
                 &campaign::calibrate_inputs(&c),
             ) {
-                campaign::calibrate_stage(&c, stop, obs.as_ref())?;
+                interruptible(|| campaign::calibrate_stage(&c, stop, obs.as_ref()))?;
             } else {
                 out!("posterior: up to date");
             }
@@ -413,8 +497,8 @@ fn main() -> ExitCode {
         .get_or_init(|| Arc::new(AtomicBool::new(false)))
         .clone();
     let _ = ctrlc::set_handler(move || {
-        if flag.swap(true, Ordering::SeqCst) {
-            // Second Ctrl-C: leave at once.
+        if !INTERRUPTIBLE.load(Ordering::SeqCst) || flag.swap(true, Ordering::SeqCst) {
+            // Nothing to finish cleanly, or a second Ctrl-C: leave at once.
             std::process::exit(130);
         }
         eprintln!("\ninterrupted: finishing cleanly (press Ctrl-C again to quit at once)");

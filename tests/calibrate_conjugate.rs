@@ -53,7 +53,7 @@ fn check(mu0: f64, tau0: f64, sigma: f64, ys: &[f64], seed: u64) {
         seed,
     };
     let chains = sample(&post, &params, &AtomicBool::new(false), &Silent);
-    let s = summarize(&["theta".into()], &chains);
+    let s = summarize(&["theta".into()], &[], &chains);
     let ps = s.parameters[0];
     let mcse = ps.sd / s.diagnostics[0].ess_bulk.sqrt();
     assert!(

@@ -299,7 +299,7 @@ fn unknown_placeholder_in_the_command_message_is_pinned() {
     let e = one_error(&env, &text, line, "simulator.command[3]");
     assert_eq!(
         message(&e, &study, line, "simulator.command[3]"),
-        "unknown placeholder `{{C}}` for experiment `bench` (known: A, B, run_dir, run_id)"
+        "unknown placeholder `{{C}}` for experiment `bench` (known: A, B, run_dir, run_id, study_dir)"
     );
 }
 

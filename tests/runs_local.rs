@@ -393,6 +393,35 @@ fn garbage_output_fails_the_run_and_names_the_file() {
 }
 
 #[test]
+fn a_simulator_killed_by_a_signal_fails_the_run_and_names_the_signal() {
+    let env = Env::new();
+    let study = env.write_minimal_study("signal");
+    let (code, out) = design_and_run(&env, &study);
+    assert_eq!(code, Some(EXIT_RUNS_FAILED), "{out}");
+    for r in all_failed(&env, &read_design(&env)) {
+        let reason = r.reason.as_deref().unwrap_or_default();
+        assert_eq!(r.exit_code, None, "no exit code after a signal");
+        // SIGKILL is signal 9 on Linux (signal(7)).
+        assert!(reason.contains("killed by signal 9"), "{reason}");
+    }
+}
+
+#[test]
+fn too_few_output_rows_fail_the_run() {
+    let env = Env::new();
+    let study = env.write_minimal_study("fewrows");
+    let (code, out) = design_and_run(&env, &study);
+    assert_eq!(code, Some(EXIT_RUNS_FAILED), "{out}");
+    for r in all_failed(&env, &read_design(&env)) {
+        let reason = r.reason.as_deref().unwrap_or_default();
+        assert!(
+            reason.contains("field x = 2 is outside the simulated range [0, 1]"),
+            "{reason}"
+        );
+    }
+}
+
+#[test]
 fn a_missing_output_fails_the_run_and_names_the_file() {
     let env = Env::new();
     let study = env.write_minimal_study("noout");

@@ -12,11 +12,21 @@
 //! C_j = −(n−1)/2 ln 2π − Σ ln σ_r + ½ ln V − ½ Σ w_r (y_r − ȳ)²  (independent of θ).
 //! Surrogate errors of different output values are treated as independent here.
 //!
+//! With an unknown variance σ² shared by every replicate of the experiment, V = σ²/n_j
+//! and C_j depends on σ²:
+//! C_j = −(n_j−1)/2 ln 2π − ½ ln n_j − (n_j−1)/2 ln σ² − S_j/(2σ²), S_j = Σ_r (y_r − ȳ)².
+//! Summed over the output values, the σ²-dependent part is
+//! −(ν/2) ln σ² − S/(2σ²) with ν = Σ_j (n_j − 1) and S = Σ_j S_j, both precomputed, so
+//! an evaluation costs the same as with known noise.
+//!
 //! # References
 //! Gelman et al. (2013), Bayesian Data Analysis, 3rd ed., §2.5 (normal mean with known
-//! variance); Kennedy, M. C. & O'Hagan, A. (2001), Bayesian calibration of computer
-//! models, JRSS B 63(3), 425–464 (emulator variance in the likelihood).
+//! variance) and §3.2 (normal with unknown variance; the split of the sum of squares
+//! into n(ȳ − μ)² + S is eq. 3.3 there, quoted from memory); Kennedy, M. C. &
+//! O'Hagan, A. (2001), Bayesian calibration of computer models, JRSS B 63(3), 425–464
+//! (emulator variance in the likelihood).
 
+use super::prior::InverseGamma;
 use crate::study::{Experiment, Noise, Target};
 
 /// Anything that predicts an experiment's output vector at parameter values θ.
@@ -32,11 +42,29 @@ impl Emulator for crate::surrogate::ExperimentModel {
 }
 
 /// Precomputed statistics of one output value's replicates.
+///
+/// With known noise `var_mean` is V and `constant` is C_j. With unknown noise
+/// `var_mean` is 1/n_j (V = σ²/n_j) and `constant` is the σ²-free part of C_j,
+/// −(n_j−1)/2 ln 2π − ½ ln n_j.
 #[derive(Debug, Clone, PartialEq)]
 struct Group {
     ybar: f64,
     var_mean: f64,
     constant: f64,
+}
+
+/// How the measurement noise enters.
+#[derive(Debug, Clone, PartialEq)]
+enum NoiseModel {
+    /// Known sds, folded into the groups.
+    Known,
+    /// Unknown σ² with an inverse-gamma prior; ν = Σ(n_j − 1) and S = Σ S_j.
+    Unknown {
+        prior: InverseGamma,
+        dof: f64,
+        ss: f64,
+        n_values: f64,
+    },
 }
 
 const LN_2PI: f64 = 1.837_877_066_409_345_3;
@@ -46,11 +74,16 @@ const LN_2PI: f64 = 1.837_877_066_409_345_3;
 pub struct ExperimentLikelihood {
     pub name: String,
     groups: Vec<Group>,
+    noise: NoiseModel,
 }
 
 impl ExperimentLikelihood {
     /// From the experiment's targets (replicates per output value) and its noise.
     pub fn new(e: &Experiment, targets: &[Target]) -> Self {
+        if let Noise::Unknown { shape, scale } = e.noise {
+            let values: Vec<Vec<f64>> = targets.iter().map(|t| t.values.clone()).collect();
+            return Self::with_unknown_noise(&e.name, &values, InverseGamma { shape, scale });
+        }
         let groups = targets
             .iter()
             .map(|t| {
@@ -63,6 +96,7 @@ impl ExperimentLikelihood {
                         (Noise::Column(_), None) => {
                             unreachable!("validation requires the sd column")
                         }
+                        (Noise::Unknown { .. }, _) => unreachable!("handled above"),
                     })
                     .collect();
                 Self::group(&t.values, &sds)
@@ -71,6 +105,7 @@ impl ExperimentLikelihood {
         Self {
             name: e.name.clone(),
             groups,
+            noise: NoiseModel::Known,
         }
     }
 
@@ -83,7 +118,79 @@ impl ExperimentLikelihood {
                 .zip(sds)
                 .map(|(v, s)| Self::group(v, s))
                 .collect(),
+            noise: NoiseModel::Known,
         }
+    }
+
+    /// From plain values per output value whose replicates share one unknown noise
+    /// variance σ² with an inverse-gamma `prior`.
+    ///
+    /// # Panics
+    /// If an output value has no replicate.
+    pub fn with_unknown_noise(name: &str, values: &[Vec<f64>], prior: InverseGamma) -> Self {
+        let mut dof = 0.0;
+        let mut ss = 0.0;
+        let mut n_values = 0.0;
+        let groups = values
+            .iter()
+            .map(|v| {
+                assert!(!v.is_empty(), "an output value without data");
+                let n = v.len() as f64;
+                let ybar = v.iter().sum::<f64>() / n;
+                dof += n - 1.0;
+                ss += v.iter().map(|y| (y - ybar).powi(2)).sum::<f64>();
+                n_values += n;
+                Group {
+                    ybar,
+                    var_mean: 1.0 / n,
+                    constant: -(n - 1.0) / 2.0 * LN_2PI - 0.5 * n.ln(),
+                }
+            })
+            .collect();
+        Self {
+            name: name.into(),
+            groups,
+            noise: NoiseModel::Unknown {
+                prior,
+                dof,
+                ss,
+                n_values,
+            },
+        }
+    }
+
+    /// The prior of the noise variance when it is unknown (and sampled).
+    pub fn noise_prior(&self) -> Option<InverseGamma> {
+        match self.noise {
+            NoiseModel::Known => None,
+            NoiseModel::Unknown { prior, .. } => Some(prior),
+        }
+    }
+
+    /// With unknown noise, the conditional posterior of σ² given emulator means `mean`
+    /// when the emulator variance is neglected: inverse-gamma(α + N/2,
+    /// β + ½(S + Σ_j n_j (ȳ_j − μ_j)²)), N the number of measurements (BDA3 §3.2–3.3
+    /// with a known mean, quoted from memory). The sampler starts the noise there.
+    pub fn noise_conditional(&self, mean: &[f64]) -> Option<InverseGamma> {
+        let NoiseModel::Unknown {
+            prior,
+            ss,
+            n_values,
+            ..
+        } = self.noise
+        else {
+            return None;
+        };
+        let resid: f64 = self
+            .groups
+            .iter()
+            .zip(mean)
+            .map(|(g, m)| (g.ybar - m).powi(2) / g.var_mean)
+            .sum();
+        Some(InverseGamma {
+            shape: prior.shape + 0.5 * n_values,
+            scale: prior.scale + 0.5 * (ss + resid),
+        })
     }
 
     fn group(values: &[f64], sds: &[f64]) -> Group {
@@ -116,12 +223,33 @@ impl ExperimentLikelihood {
         self.groups.is_empty()
     }
 
-    /// ln L given the emulator's mean and variance of each output value.
+    /// ln L given the emulator's mean and variance of each output value (known noise).
+    ///
+    /// # Panics
+    /// In debug builds, if the noise is unknown: use [`Self::ln_likelihood_with_noise`].
     pub fn ln_likelihood(&self, mean: &[f64], var: &[f64]) -> f64 {
+        debug_assert!(
+            self.noise == NoiseModel::Known,
+            "unknown noise needs its variance"
+        );
+        self.ln_likelihood_with_noise(mean, var, 1.0)
+    }
+
+    /// ln L given the emulator's mean and variance of each output value and, when the
+    /// noise is unknown, its variance `noise_var` (ignored with known noise).
+    pub fn ln_likelihood_with_noise(&self, mean: &[f64], var: &[f64], noise_var: f64) -> f64 {
         debug_assert_eq!(mean.len(), self.groups.len());
-        let mut s = 0.0;
+        let (scale, mut s) = match self.noise {
+            NoiseModel::Known => (1.0, 0.0),
+            NoiseModel::Unknown { dof, ss, .. } => {
+                if !(noise_var > 0.0 && noise_var.is_finite()) {
+                    return f64::NEG_INFINITY;
+                }
+                (noise_var, -0.5 * (dof * noise_var.ln() + ss / noise_var))
+            }
+        };
         for ((g, m), v) in self.groups.iter().zip(mean).zip(var) {
-            let tot = v + g.var_mean;
+            let tot = v + scale * g.var_mean;
             s += -0.5 * (LN_2PI + tot.ln() + (g.ybar - m).powi(2) / tot) + g.constant;
         }
         s
@@ -144,5 +272,38 @@ mod tests {
             .map(|y| -0.5 * (LN_2PI + (sd * sd).ln() + (y - mu).powi(2) / (sd * sd)))
             .sum();
         assert!((l.ln_likelihood(&[mu], &[0.0]) - direct).abs() < 1e-12);
+    }
+
+    #[test]
+    fn unknown_noise_equals_the_product_of_normals_at_each_variance() {
+        // Curve of three values with 3, 1 and 2 replicates; exact emulator.
+        let ys = vec![vec![1.0, 1.4, 0.7], vec![2.0], vec![2.9, 3.3]];
+        let mu = [1.1, 2.2, 3.0];
+        let prior = InverseGamma {
+            shape: 2.0,
+            scale: 1.0,
+        };
+        let l = ExperimentLikelihood::with_unknown_noise("t", &ys, prior);
+        for var in [0.01f64, 0.3, 4.0] {
+            let direct: f64 = ys
+                .iter()
+                .zip(mu)
+                .flat_map(|(g, m)| {
+                    g.iter()
+                        .map(move |y| -0.5 * (LN_2PI + var.ln() + (y - m).powi(2) / var))
+                })
+                .sum();
+            let got = l.ln_likelihood_with_noise(&mu, &[0.0; 3], var);
+            assert!(
+                (got - direct).abs() < 1e-12,
+                "σ² = {var}: {got} vs {direct}"
+            );
+        }
+        // The same data with the variance known must give the same value.
+        let sds: Vec<Vec<f64>> = ys.iter().map(|g| vec![0.3_f64.sqrt(); g.len()]).collect();
+        let known = ExperimentLikelihood::from_values("t", &ys, &sds);
+        let a = known.ln_likelihood(&mu, &[0.05; 3]);
+        let b = l.ln_likelihood_with_noise(&mu, &[0.05; 3], 0.3);
+        assert!((a - b).abs() < 1e-12, "{a} vs {b}");
     }
 }

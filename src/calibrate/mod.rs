@@ -2,7 +2,8 @@
 //!
 //! Input: the study's parameters (priors, ranges), each experiment's field data and
 //! noise, and an [`Emulator`] per experiment (the fitted surrogate, or an exact model in
-//! tests). Output: MCMC [`Chain`]s, their [`Diagnostics`] and a [`PosteriorSummary`].
+//! tests). Output: MCMC [`Chain`]s of the parameters and of any unknown noise variance,
+//! their [`Diagnostics`] and a [`PosteriorSummary`].
 //! Must not: open files, print, or create its own RNG (streams come from one seed).
 
 mod diagnostics;
@@ -15,6 +16,9 @@ mod summary;
 pub use diagnostics::{ess_bulk, ess_tail, rhat, Diagnostics};
 pub use likelihood::{Emulator, ExperimentLikelihood};
 pub use posterior::LogPosterior;
-pub use prior::{ln_prior, Transform};
+pub use prior::{ln_prior, InverseGamma, Transform};
 pub use sampler::{sample, Chain, SamplerParams, Termination};
-pub use summary::{summarize, ParameterSummary, PosteriorBody, PosteriorSummary};
+pub use summary::{
+    summarize, Correlation, Marginal, Mcse, NoiseMcse, NoiseSummary, ParameterSummary,
+    PosteriorBody, PosteriorSummary, ESS_WARN, RHAT_WARN,
+};

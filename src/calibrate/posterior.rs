@@ -1,16 +1,23 @@
 //! The log posterior on the unconstrained space: priors, Jacobians and the likelihoods
 //! of every experiment.
+//!
+//! The state is x = (θ₁ … θ_d, σ₁² … σ_k²): the study's parameters, then the noise
+//! variance of each experiment whose noise is unknown, in the study's experiment order.
+//! The sampler works on z = (logit θ, ln σ²).
 
 use super::likelihood::{Emulator, ExperimentLikelihood};
-use super::prior::{ln_prior, Transform};
+use super::prior::{ln_prior, InverseGamma, Transform};
 use crate::study::Parameter;
 use std::sync::atomic::{AtomicU64, Ordering};
 
-/// ln p(θ | data) + const, evaluated at unconstrained z.
+/// ln p(θ, σ² | data) + const, evaluated at unconstrained z.
 pub struct LogPosterior<'a> {
     pub parameters: Vec<Parameter>,
     pub transforms: Vec<Transform>,
     pub experiments: Vec<(&'a dyn Emulator, ExperimentLikelihood)>,
+    /// For each experiment, the index of its noise variance in the state (after the
+    /// parameters), when its noise is unknown.
+    noise_slot: Vec<Option<usize>>,
     /// Evaluations of this density (all chains).
     pub n_evaluations: AtomicU64,
 }
@@ -24,59 +31,163 @@ impl<'a> LogPosterior<'a> {
             .iter()
             .map(|p| Transform { lo: p.lo, hi: p.hi })
             .collect();
+        let mut k = 0;
+        let noise_slot = experiments
+            .iter()
+            .map(|(_, lik)| {
+                lik.noise_prior().map(|_| {
+                    k += 1;
+                    k - 1
+                })
+            })
+            .collect();
         Self {
             parameters,
             transforms,
             experiments,
+            noise_slot,
             n_evaluations: AtomicU64::new(0),
         }
     }
 
+    /// Length of the sampled state: parameters plus estimated noise variances.
     pub fn dim(&self) -> usize {
+        self.n_parameters() + self.n_noise()
+    }
+
+    pub fn n_parameters(&self) -> usize {
         self.parameters.len()
     }
 
+    /// Number of estimated noise variances.
+    pub fn n_noise(&self) -> usize {
+        self.noise_slot.iter().flatten().count()
+    }
+
+    /// Names of the experiments whose noise variance is estimated, in state order.
+    pub fn noise_names(&self) -> Vec<String> {
+        self.experiments
+            .iter()
+            .zip(&self.noise_slot)
+            .filter(|(_, s)| s.is_some())
+            .map(|((_, lik), _)| lik.name.clone())
+            .collect()
+    }
+
+    /// The inverse-gamma priors of the estimated noise variances, in state order.
+    pub fn noise_priors(&self) -> Vec<InverseGamma> {
+        self.experiments
+            .iter()
+            .filter_map(|(_, lik)| lik.noise_prior())
+            .collect()
+    }
+
+    /// z → x: logit⁻¹ for the parameters, exp for the noise variances.
     pub fn to_constrained(&self, z: &[f64]) -> Vec<f64> {
-        z.iter()
+        let d = self.n_parameters();
+        z[..d]
+            .iter()
             .zip(&self.transforms)
             .map(|(z, t)| t.to_constrained(*z))
+            .chain(z[d..].iter().map(|z| z.exp()))
             .collect()
     }
 
+    /// x → z, the inverse of [`Self::to_constrained`].
     pub fn to_unconstrained(&self, x: &[f64]) -> Vec<f64> {
-        x.iter()
+        let d = self.n_parameters();
+        x[..d]
+            .iter()
             .zip(&self.transforms)
             .map(|(x, t)| t.to_unconstrained(*x))
+            .chain(x[d..].iter().map(|v| v.ln()))
             .collect()
     }
 
-    /// ln p(θ | y) in θ-space (no Jacobian): what records report.
-    pub fn ln_posterior_theta(&self, theta: &[f64]) -> f64 {
+    /// ln |dx/dz|.
+    ///
+    /// # Formula
+    /// Σ_i ln |dθ_i/dz_i| (logit map, see [`Transform`]) + Σ_k z_k (σ_k² = e^{z_k}).
+    pub fn ln_jacobian(&self, z: &[f64]) -> f64 {
+        let d = self.n_parameters();
+        z[..d]
+            .iter()
+            .zip(&self.transforms)
+            .map(|(z, t)| t.ln_jacobian(*z))
+            .sum::<f64>()
+            + z[d..].iter().sum::<f64>()
+    }
+
+    /// ln p(x | y) at x = (θ, σ²) on the constrained scale (no Jacobian): what records
+    /// report.
+    pub fn ln_posterior(&self, x: &[f64]) -> f64 {
+        let d = self.n_parameters();
+        debug_assert_eq!(x.len(), self.dim());
+        let (theta, noise_var) = x.split_at(d);
         let mut lp: f64 = self
             .parameters
             .iter()
             .zip(theta)
             .map(|(p, x)| ln_prior(p, *x))
             .sum();
+        for ((_, lik), slot) in self.experiments.iter().zip(&self.noise_slot) {
+            if let (Some(k), Some(prior)) = (slot, lik.noise_prior()) {
+                lp += prior.ln_density(noise_var[*k]);
+            }
+        }
         if !lp.is_finite() {
             return lp;
         }
-        for (em, lik) in &self.experiments {
+        for ((em, lik), slot) in self.experiments.iter().zip(&self.noise_slot) {
             let (m, v) = em.predict(theta);
-            lp += lik.ln_likelihood(&m, &v);
+            let s2 = slot.map_or(1.0, |k| noise_var[k]);
+            lp += lik.ln_likelihood_with_noise(&m, &v, s2);
         }
         lp
     }
 
-    /// The density the sampler targets: ln p(θ(z) | y) + ln |dθ/dz|.
+    /// ln p(θ | y) in θ-space for a posterior without estimated noise.
+    ///
+    /// # Panics
+    /// If some noise variance is estimated (use [`Self::ln_posterior`]).
+    pub fn ln_posterior_theta(&self, theta: &[f64]) -> f64 {
+        assert_eq!(self.n_noise(), 0, "the state includes noise variances");
+        self.ln_posterior(theta)
+    }
+
+    /// The density the sampler targets: ln p(x(z) | y) + ln |dx/dz|.
     pub fn ln_density(&self, z: &[f64]) -> f64 {
         self.n_evaluations.fetch_add(1, Ordering::Relaxed);
-        let theta = self.to_constrained(z);
-        let jac: f64 = z
-            .iter()
-            .zip(&self.transforms)
-            .map(|(z, t)| t.ln_jacobian(*z))
-            .sum();
-        self.ln_posterior_theta(&theta) + jac
+        let x = self.to_constrained(z);
+        self.ln_posterior(&x) + self.ln_jacobian(z)
+    }
+
+    /// A starting value of each estimated noise variance at parameters `theta`: a draw
+    /// from its conditional posterior given θ when the surrogate variance is neglected
+    /// (see [`ExperimentLikelihood::noise_conditional`]). Every variance is drawn from
+    /// `rng` in state order; nothing is drawn when no noise is estimated.
+    pub fn initial_noise<R: rand::Rng + ?Sized>(&self, theta: &[f64], rng: &mut R) -> Vec<f64> {
+        use rand_distr::{Distribution, Gamma};
+        let mut out = Vec::with_capacity(self.n_noise());
+        for (em, lik) in &self.experiments {
+            if lik.noise_prior().is_none() {
+                continue;
+            }
+            let (m, _) = em.predict(theta);
+            let c = lik
+                .noise_conditional(&m)
+                .expect("unknown noise has a conditional");
+            // σ² = β / G with G ~ Gamma(α, 1).
+            let g = Gamma::new(c.shape, 1.0)
+                .expect("shape > 0 by validation")
+                .sample(rng);
+            let v = c.scale / g;
+            out.push(if v.is_finite() && v > 0.0 {
+                v
+            } else {
+                c.scale / c.shape
+            });
+        }
+        out
     }
 }

@@ -1,4 +1,5 @@
-//! Priors truncated to the parameter range, and the map to an unconstrained space.
+//! Priors truncated to the parameter range, the map to an unconstrained space, and the
+//! inverse-gamma prior of an unknown noise variance.
 
 use crate::study::{Parameter, Prior};
 
@@ -49,6 +50,46 @@ impl Transform {
     pub fn ln_jacobian(&self, z: f64) -> f64 {
         // ln s(z) + ln(1 − s(z)) = −|z| − 2 ln(1 + e^{−|z|})
         (self.hi - self.lo).ln() - z.abs() - 2.0 * (-z.abs()).exp().ln_1p()
+    }
+}
+
+/// Inverse-gamma prior of an unknown noise variance σ², sampled as z = ln σ².
+///
+/// # Formula
+/// p(σ²) = βᵅ/Γ(α) (σ²)^(−α−1) exp(−β/σ²), σ² > 0, with α = `shape`, β = `scale`;
+/// mean β/(α − 1) for α > 1. On z = ln σ² (Jacobian dσ²/dz = σ²):
+/// ln p(z) = −α z − β e^(−z) + const.
+///
+/// # References
+/// Gelman, A., Carlin, J. B., Stern, H. S., Dunson, D. B., Vehtari, A. & Rubin, D. B.
+/// (2013), Bayesian Data Analysis, 3rd ed., §2.6 and Appendix A (the scaled inverse-χ²
+/// and inverse-gamma families).
+///
+/// ```
+/// use assay::calibrate::InverseGamma;
+/// let p = InverseGamma { shape: 3.0, scale: 2.0 };
+/// // The density on z = ln σ² is the density on σ² times σ².
+/// let s2: f64 = 0.7;
+/// assert!((p.ln_density_ln_var(s2.ln()) - (p.ln_density(s2) + s2.ln())).abs() < 1e-12);
+/// ```
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct InverseGamma {
+    pub shape: f64,
+    pub scale: f64,
+}
+
+impl InverseGamma {
+    /// ln p(σ²) up to the normalising constant; −∞ for σ² ≤ 0.
+    pub fn ln_density(&self, var: f64) -> f64 {
+        if var.is_nan() || var <= 0.0 || !var.is_finite() {
+            return f64::NEG_INFINITY;
+        }
+        -(self.shape + 1.0) * var.ln() - self.scale / var
+    }
+
+    /// ln p(z) for z = ln σ², Jacobian included, up to the normalising constant.
+    pub fn ln_density_ln_var(&self, z: f64) -> f64 {
+        -self.shape * z - self.scale * (-z).exp()
     }
 }
 

@@ -17,12 +17,63 @@ pub struct ParameterSummary {
     pub map: f64,
 }
 
+/// Marginal summary of a derived quantity (a noise sd or variance).
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct Marginal {
+    pub mean: f64,
+    pub sd: f64,
+    pub median: f64,
+    pub q025: f64,
+    pub q975: f64,
+}
+
+/// Monte Carlo standard errors of one quantity's posterior summaries.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct Mcse {
+    /// MCSE of the posterior mean, sd / √(bulk ESS).
+    pub mean: f64,
+}
+
+/// The posterior of one experiment's unknown noise.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct NoiseSummary {
+    /// Of the noise standard deviation σ.
+    pub sd: Marginal,
+    /// Of the noise variance σ².
+    pub variance: Marginal,
+    /// R̂ and ESS of the σ draws.
+    pub diagnostics: Diagnostics,
+    /// MCSE of the posterior means of σ (`sd`) and σ² (`variance`).
+    pub mcse: NoiseMcse,
+}
+
+/// MCSE of the posterior means of a noise sd and variance.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct NoiseMcse {
+    pub sd: f64,
+    pub variance: f64,
+}
+
+/// Posterior correlation matrix of the parameters.
+#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
+pub struct Correlation {
+    /// Row and column order.
+    pub names: Vec<String>,
+    pub matrix: Vec<Vec<f64>>,
+}
+
 /// Summaries and diagnostics of every parameter, in the study's order.
 #[derive(Debug, Clone, PartialEq)]
 pub struct PosteriorSummary {
     pub names: Vec<String>,
     pub parameters: Vec<ParameterSummary>,
     pub diagnostics: Vec<Diagnostics>,
+    /// Monte Carlo standard error of each parameter's posterior mean.
+    pub mcse: Vec<Mcse>,
+    /// Pearson correlation of the parameters over all kept draws.
+    pub correlation: Correlation,
+    /// Experiments whose noise was estimated, with their noise posterior.
+    pub noise: Vec<(String, NoiseSummary)>,
     pub n_draws: usize,
     /// Warnings a reader must see (convergence, effective sample size).
     pub warnings: Vec<String>,
@@ -30,12 +81,86 @@ pub struct PosteriorSummary {
 
 /// R̂ above this suggests the chains have not mixed (Vehtari et al. 2021 recommend 1.01).
 pub const RHAT_WARN: f64 = 1.01;
-/// Fewer effective draws than this per chain make tail quantiles unreliable
-/// (Vehtari et al. 2021: 100 per chain).
-pub const ESS_PER_CHAIN_WARN: f64 = 100.0;
+/// Fewer effective draws than this, all chains together, make the summaries and tail
+/// quantiles unreliable (Vehtari et al. 2021, §4: bulk and tail ESS above 400, i.e. 100
+/// per chain with four chains).
+pub const ESS_WARN: f64 = 400.0;
 
-/// Summarise the kept draws of `chains`.
-pub fn summarize(names: &[String], chains: &[Chain]) -> PosteriorSummary {
+/// Moments and quantiles of pooled draws.
+fn marginal(all: &[f64]) -> Marginal {
+    let n = all.len() as f64;
+    let mean = all.iter().sum::<f64>() / n;
+    let sd = (all.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n - 1.0)).sqrt();
+    let mut sorted = all.to_vec();
+    sorted.sort_by(f64::total_cmp);
+    Marginal {
+        mean,
+        sd,
+        median: quantile_sorted(&sorted, 0.5),
+        q025: quantile_sorted(&sorted, 0.025),
+        q975: quantile_sorted(&sorted, 0.975),
+    }
+}
+
+/// Warnings for one quantity's diagnostics.
+fn diagnostic_warnings(name: &str, d: &Diagnostics, warnings: &mut Vec<String>) {
+    if d.rhat.is_nan() || d.rhat > RHAT_WARN {
+        warnings.push(format!(
+            "{name}: R-hat {:.3} > {RHAT_WARN}: the chains disagree; run longer or check for several modes",
+            d.rhat
+        ));
+    }
+    if d.ess_bulk.is_nan() || d.ess_tail.is_nan() || d.ess_bulk < ESS_WARN || d.ess_tail < ESS_WARN
+    {
+        warnings.push(format!(
+            "{name}: effective sample size (bulk {:.0}, tail {:.0}) below {ESS_WARN:.0}: means and quantiles are imprecise; run longer",
+            d.ess_bulk, d.ess_tail
+        ));
+    }
+}
+
+/// Pearson correlation of the columns of `rows`.
+fn correlation(rows: &[&Vec<f64>], d: usize) -> Vec<Vec<f64>> {
+    let n = rows.len() as f64;
+    let mut mean = vec![0.0; d];
+    for r in rows {
+        for j in 0..d {
+            mean[j] += r[j] / n;
+        }
+    }
+    let mut c = vec![vec![0.0; d]; d];
+    for r in rows {
+        for a in 0..d {
+            for b in 0..=a {
+                c[a][b] += (r[a] - mean[a]) * (r[b] - mean[b]);
+            }
+        }
+    }
+    let sd: Vec<f64> = (0..d).map(|a| c[a][a].sqrt()).collect();
+    let mut out = vec![vec![0.0; d]; d];
+    for a in 0..d {
+        for b in 0..=a {
+            let r = if a == b {
+                1.0
+            } else {
+                (c[a][b] / (sd[a] * sd[b])).clamp(-1.0, 1.0)
+            };
+            out[a][b] = r;
+            out[b][a] = r;
+        }
+    }
+    out
+}
+
+/// Summarise the kept draws of `chains`: parameters `names` (the columns of
+/// [`Chain::theta`]) and estimated noise of experiments `noise_names` (the columns of
+/// [`Chain::noise_var`]).
+///
+/// # Formula
+/// MCSE of a mean: sd / √ESS_bulk. Vehtari et al. (2021) use the ESS of the raw draws
+/// for the mean; the bulk ESS (of the rank-normalised draws) equals it for a normal
+/// posterior and is close for smooth unimodal ones.
+pub fn summarize(names: &[String], noise_names: &[String], chains: &[Chain]) -> PosteriorSummary {
     let d = names.len();
     let mut best = (f64::NEG_INFINITY, Vec::new());
     for c in chains {
@@ -47,39 +172,63 @@ pub fn summarize(names: &[String], chains: &[Chain]) -> PosteriorSummary {
     }
     let mut parameters = Vec::with_capacity(d);
     let mut diagnostics = Vec::with_capacity(d);
+    let mut mcse = Vec::with_capacity(d);
     let mut warnings = Vec::new();
-    let mut n_draws = 0;
+    let n_draws = chains.iter().map(|c| c.theta.len()).sum();
     for j in 0..d {
         let per_chain: Vec<Vec<f64>> = chains
             .iter()
             .map(|c| c.theta.iter().map(|t| t[j]).collect())
             .collect();
-        let mut all: Vec<f64> = per_chain.iter().flatten().copied().collect();
-        n_draws = all.len();
-        let n = all.len() as f64;
-        let mean = all.iter().sum::<f64>() / n;
-        let sd = (all.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n - 1.0)).sqrt();
-        all.sort_by(f64::total_cmp);
+        let all: Vec<f64> = per_chain.iter().flatten().copied().collect();
+        let m = marginal(&all);
         parameters.push(ParameterSummary {
-            mean,
-            sd,
-            median: quantile_sorted(&all, 0.5),
-            q025: quantile_sorted(&all, 0.025),
-            q975: quantile_sorted(&all, 0.975),
+            mean: m.mean,
+            sd: m.sd,
+            median: m.median,
+            q025: m.q025,
+            q975: m.q975,
             map: best.1.get(j).copied().unwrap_or(f64::NAN),
         });
         let diag = Diagnostics::of(&per_chain);
-        if diag.rhat > RHAT_WARN {
-            warnings.push(format!("{}: R-hat {:.3} > {RHAT_WARN}: the chains disagree; run longer or check for several modes", names[j], diag.rhat));
-        }
-        let min_ess = ESS_PER_CHAIN_WARN * chains.len() as f64;
-        if diag.ess_bulk < min_ess || diag.ess_tail < min_ess {
-            warnings.push(format!(
-                "{}: effective sample size (bulk {:.0}, tail {:.0}) below {min_ess:.0}: quantiles are imprecise; run longer",
-                names[j], diag.ess_bulk, diag.ess_tail
-            ));
-        }
+        diagnostic_warnings(&names[j], &diag, &mut warnings);
+        mcse.push(Mcse {
+            mean: m.sd / diag.ess_bulk.sqrt(),
+        });
         diagnostics.push(diag);
+    }
+    let rows: Vec<&Vec<f64>> = chains.iter().flat_map(|c| &c.theta).collect();
+    let correlation = Correlation {
+        names: names.to_vec(),
+        matrix: correlation(&rows, d),
+    };
+    let mut noise = Vec::with_capacity(noise_names.len());
+    for (k, name) in noise_names.iter().enumerate() {
+        let var_chains: Vec<Vec<f64>> = chains
+            .iter()
+            .map(|c| c.noise_var.iter().map(|v| v[k]).collect())
+            .collect();
+        let sd_chains: Vec<Vec<f64>> = var_chains
+            .iter()
+            .map(|c| c.iter().map(|v| v.sqrt()).collect())
+            .collect();
+        let var_all: Vec<f64> = var_chains.iter().flatten().copied().collect();
+        let sd_all: Vec<f64> = sd_chains.iter().flatten().copied().collect();
+        let (sd, variance) = (marginal(&sd_all), marginal(&var_all));
+        let diag = Diagnostics::of(&sd_chains);
+        diagnostic_warnings(&format!("noise sd of {name}"), &diag, &mut warnings);
+        noise.push((
+            name.clone(),
+            NoiseSummary {
+                sd,
+                variance,
+                diagnostics: diag,
+                mcse: NoiseMcse {
+                    sd: sd.sd / diag.ess_bulk.sqrt(),
+                    variance: variance.sd / diag.ess_bulk.sqrt(),
+                },
+            },
+        ));
     }
     if chains
         .iter()
@@ -91,6 +240,9 @@ pub fn summarize(names: &[String], chains: &[Chain]) -> PosteriorSummary {
         names: names.to_vec(),
         parameters,
         diagnostics,
+        mcse,
+        correlation,
+        noise,
         n_draws,
         warnings,
     }
@@ -122,6 +274,17 @@ pub struct SettingsWire {
 pub struct PosteriorBody {
     pub parameters: BTreeMap<String, ParameterSummary>,
     pub diagnostics: BTreeMap<String, Diagnostics>,
+    /// Monte Carlo standard errors per parameter (absent in records of assay 0.1.0
+    /// before this key was added, hence the default).
+    #[serde(default)]
+    pub mcse: BTreeMap<String, Mcse>,
+    /// Posterior correlation matrix of the parameters.
+    #[serde(default)]
+    pub correlation: Correlation,
+    /// Posterior of each estimated measurement noise, by experiment; absent when every
+    /// noise is known.
+    #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
+    pub noise: BTreeMap<String, NoiseSummary>,
     pub settings: SettingsWire,
     pub chains: Vec<ChainWire>,
     pub n_draws: usize,
@@ -158,14 +321,21 @@ impl PosteriorBody {
                 .cloned()
                 .zip(s.diagnostics.iter().copied())
                 .collect(),
+            mcse: s.names.iter().cloned().zip(s.mcse.iter().copied()).collect(),
+            correlation: s.correlation.clone(),
+            noise: s.noise.iter().cloned().collect(),
             settings: SettingsWire {
                 sampler: "random-walk Metropolis, proposal tuned in warm-up".into(),
                 chains: params.chains,
                 warmup: params.warmup,
                 draws: params.draws,
                 seed: params.seed,
-                likelihood: "Gaussian: known measurement noise plus surrogate predictive variance"
-                    .into(),
+                likelihood: if s.noise.is_empty() {
+                    "Gaussian: known measurement noise plus surrogate predictive variance"
+                } else {
+                    "Gaussian: measurement noise (known, or unknown variance with an inverse-gamma prior, sampled) plus surrogate predictive variance"
+                }
+                .into(),
             },
             chains: chains
                 .iter()

@@ -29,6 +29,17 @@ pub fn sha256_file(path: &Path) -> std::io::Result<String> {
 /// Write `bytes` to `path` atomically: a temporary file in the same folder, flushed to
 /// disk, then renamed over `path`, so a reader never sees half a file.
 pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<()> {
+    write_atomic_with(path, bytes, true)
+}
+
+/// As [`write_atomic`] but without forcing the data to disk first: still never half a
+/// file, but a power failure may lose the update. For transient states (a run marked
+/// `running`), whose loss only means the run is started again.
+pub fn write_atomic_unsynced(path: &Path, bytes: &[u8]) -> Result<()> {
+    write_atomic_with(path, bytes, false)
+}
+
+fn write_atomic_with(path: &Path, bytes: &[u8], sync: bool) -> Result<()> {
     let dir = path
         .parent()
         .filter(|p| !p.as_os_str().is_empty())
@@ -39,17 +50,31 @@ pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<()> {
         .file_name()
         .map(|n| n.to_string_lossy().into_owned())
         .unwrap_or_default();
-    let tmp = dir.join(format!(".{name}.tmp-{}", std::process::id()));
+    // pid and thread make the temporary name unique among concurrent writers.
+    let tmp = dir.join(format!(
+        ".{name}.tmp-{}-{:?}",
+        std::process::id(),
+        std::thread::current().id()
+    ));
     {
         let mut f = std::fs::File::create(&tmp)
             .with_context(|| format!("cannot create {}", tmp.display()))?;
         f.write_all(bytes)
             .with_context(|| format!("cannot write {}", tmp.display()))?;
-        f.sync_all().ok();
+        if sync {
+            f.sync_all()
+                .with_context(|| format!("cannot flush {} to disk", tmp.display()))?;
+        }
     }
     std::fs::rename(&tmp, path)
         .with_context(|| format!("cannot move {} to {}", tmp.display(), path.display()))?;
     Ok(())
+}
+
+/// A record of a transient state, written atomically without fsync.
+pub fn write_record_unsynced<T: Serialize>(path: &Path, record: &Record<T>) -> Result<()> {
+    let text = serde_yaml::to_string(record).context("cannot serialise record")?;
+    write_atomic_unsynced(path, text.as_bytes())
 }
 
 /// Serialise a record to YAML and write it atomically.

@@ -7,7 +7,10 @@
 mod io;
 mod provenance;
 
-pub use io::{read_record, sha256_file, sha256_hex, write_atomic, write_record};
+pub use io::{
+    read_record, sha256_file, sha256_hex, write_atomic, write_atomic_unsynced, write_record,
+    write_record_unsynced,
+};
 pub use provenance::{Provenance, ProvenanceClock};
 
 use serde::{Deserialize, Serialize};

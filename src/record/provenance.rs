@@ -12,6 +12,9 @@ pub struct Provenance {
     /// Git commit of assay's source, when it was built from a git checkout.
     pub git_commit: Option<String>,
     pub command_line: Vec<String>,
+    /// Folder the command ran in: relative input paths are relative to it.
+    #[serde(default)]
+    pub working_dir: Option<String>,
     pub host: String,
     pub user: String,
     pub started_utc: String,
@@ -55,6 +58,14 @@ impl ProvenanceClock {
         Ok(h)
     }
 
+    /// Hash `path` and note it under `name` (campaign files are named relative to the
+    /// campaign folder, e.g. `design.yaml`).
+    pub fn input_named(&mut self, name: &str, path: &Path) -> std::io::Result<String> {
+        let h = super::sha256_file(path)?;
+        self.inputs.insert(name.to_string(), h.clone());
+        Ok(h)
+    }
+
     /// Note an input whose hash is already known.
     pub fn input_hash(&mut self, name: &str, sha256: &str) {
         self.inputs.insert(name.to_string(), sha256.to_string());
@@ -73,6 +84,9 @@ impl ProvenanceClock {
             tool_version: env!("CARGO_PKG_VERSION").into(),
             git_commit: (!commit.is_empty()).then(|| commit.to_string()),
             command_line: self.command_line,
+            working_dir: std::env::current_dir()
+                .ok()
+                .map(|p| p.display().to_string()),
             host: gethostname::gethostname().to_string_lossy().into_owned(),
             user: std::env::var("USER")
                 .or_else(|_| std::env::var("LOGNAME"))

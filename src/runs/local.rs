@@ -5,7 +5,9 @@ use super::parse::{match_stations, parse_output};
 use super::store::{run_dir, run_record_path, Attempt, Fingerprint, RunBody, RunState};
 use crate::design::{Design, DesignPoint};
 use crate::progress::Observer;
-use crate::record::{read_record, sha256_file, write_record, ProvenanceClock, Record};
+use crate::record::{
+    read_record, sha256_file, write_record, write_record_unsynced, ProvenanceClock, Record,
+};
 use crate::study::{placeholder, Experiment, Study};
 use anyhow::{Context, Result};
 use chrono::{SecondsFormat, Utc};
@@ -169,6 +171,16 @@ pub fn run_all(
         }
         .into());
     }
+    // What every run reads: the study's files and the design, hashed once.
+    let mut inputs = BTreeMap::new();
+    for f in study.input_files() {
+        let h = sha256_file(&f).with_context(|| format!("cannot hash {}", f.display()))?;
+        inputs.insert(f.display().to_string(), h);
+    }
+    let design_path = campaign.join("design.yaml");
+    if design_path.exists() {
+        inputs.insert("design.yaml".to_string(), sha256_file(&design_path)?);
+    }
     observer.start("runs", todo.len() as u64);
     let next = AtomicUsize::new(0);
     let n_done = AtomicUsize::new(0);
@@ -196,7 +208,17 @@ pub fn run_all(
                 };
                 n_running.fetch_add(1, Ordering::SeqCst);
                 let fp = &fingerprints[e.name.as_str()];
-                let r = run_one(study, p, e, fp, prev.clone(), campaign, command_line, stop);
+                let r = run_one(
+                    study,
+                    p,
+                    e,
+                    fp,
+                    prev.clone(),
+                    campaign,
+                    command_line,
+                    &inputs,
+                    stop,
+                );
                 n_running.fetch_sub(1, Ordering::SeqCst);
                 let label = format!("{}/{}", p.id, e.name);
                 match &r {
@@ -263,6 +285,7 @@ fn run_one(
     previous: Option<RunBody>,
     campaign: &Path,
     command_line: &[String],
+    inputs: &BTreeMap<String, String>,
     stop: &AtomicBool,
 ) -> Result<RunState> {
     let dir = run_dir(campaign, &point.id, &e.name);
@@ -278,6 +301,8 @@ fn run_one(
     }
     values.insert("run_dir".into(), dir.display().to_string());
     values.insert("run_id".into(), format!("{}-{}", point.id, e.name));
+    let study_dir = std::fs::canonicalize(&study.dir).unwrap_or_else(|_| study.dir.clone());
+    values.insert("study_dir".into(), study_dir.display().to_string());
 
     let mut argv = Vec::new();
     for a in &study.simulator.command {
@@ -328,8 +353,11 @@ fn run_one(
         // live process owns it). Its simulator may still be running or may have finished.
         if let Some(state) = recover(study, e, &mut body, &dir, stop) {
             let mut clock = ProvenanceClock::start(command_line.to_vec());
+            for (k, v) in inputs {
+                clock.input_hash(k, v);
+            }
             if let Some(sha) = &body.outputs_sha256 {
-                clock.input_hash(&study.simulator.output.file, sha);
+                clock.input_hash(&format!("output:{}", study.simulator.output.file), sha);
             }
             write_record(
                 &record_path,
@@ -342,6 +370,9 @@ fn run_one(
     let max_attempts = 1 + study.simulator.retries;
     for _ in 0..max_attempts {
         let mut clock = ProvenanceClock::start(command_line.to_vec());
+        for (k, v) in inputs {
+            clock.input_hash(k, v);
+        }
         body.state = RunState::Running;
         body.attempts += 1;
         body.owner_pid = Some(std::process::id());
@@ -349,7 +380,7 @@ fn run_one(
         body.owner_started_utc = Some(now());
         body.values = None;
         body.outputs_sha256 = None;
-        write_record(
+        write_record_unsynced(
             &record_path,
             &Record::new("run", clock_snapshot(command_line), body.clone()),
         )?;
@@ -359,7 +390,7 @@ fn run_one(
         let on_spawn = |pid: u32| -> Result<()> {
             let mut b = body.clone();
             b.child_pid = Some(pid);
-            write_record(
+            write_record_unsynced(
                 &record_path,
                 &Record::new("run", clock_snapshot(command_line), b),
             )
@@ -400,7 +431,7 @@ fn run_one(
                     exit_code,
                     reason: None,
                 });
-                clock.input_hash(&study.simulator.output.file, &sha);
+                clock.input_hash(&format!("output:{}", study.simulator.output.file), &sha);
                 write_record(
                     &record_path,
                     &Record::new("run", clock.finish(), body.clone()),
@@ -522,6 +553,47 @@ fn recover(
 /// Time a simulator gets to exit after SIGTERM on interruption before SIGKILL.
 const TERM_GRACE: Duration = Duration::from_secs(5);
 
+/// Why the watchdog killed a simulator.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Kill {
+    TimedOut,
+    Interrupted,
+}
+
+/// Longest sleep of the watchdog between checks of the stop flag.
+const WATCH_TICK: Duration = Duration::from_millis(50);
+
+/// Watch one simulator's process group until `exited` fires: kill it at `deadline`
+/// (SIGKILL), or on interruption (SIGTERM, then SIGKILL after [`TERM_GRACE`]).
+fn watch(
+    pgid: nix::unistd::Pid,
+    deadline: Instant,
+    stop: &AtomicBool,
+    exited: &std::sync::mpsc::Receiver<()>,
+) -> Option<Kill> {
+    use nix::sys::signal::{killpg, Signal};
+    use std::sync::mpsc::RecvTimeoutError;
+    loop {
+        let now = Instant::now();
+        if stop.load(Ordering::SeqCst) {
+            let _ = killpg(pgid, Signal::SIGTERM);
+            if let Err(RecvTimeoutError::Timeout) = exited.recv_timeout(TERM_GRACE) {
+                let _ = killpg(pgid, Signal::SIGKILL);
+            }
+            return Some(Kill::Interrupted);
+        }
+        if now >= deadline {
+            // Kill the whole process group: simulators often start helpers.
+            let _ = killpg(pgid, Signal::SIGKILL);
+            return Some(Kill::TimedOut);
+        }
+        match exited.recv_timeout((deadline - now).min(WATCH_TICK)) {
+            Err(RecvTimeoutError::Timeout) => {}
+            _ => return None,
+        }
+    }
+}
+
 /// How one attempt ended.
 enum Outcome {
     /// Output values matched to the stations, and the output file's sha256.
@@ -595,50 +667,39 @@ fn attempt(
             Outcome::Failed(format!("cannot record the simulator's pid: {err:#}")),
         );
     }
+    // The worker blocks in wait() so a finished simulator is noticed at once; a watchdog
+    // thread enforces the timeout and the interruption by signalling the process group.
     let deadline = Instant::now() + Duration::from_secs_f64(sim.timeout_s);
-    let mut pause = Duration::from_millis(2);
-    let status = loop {
-        match child.try_wait() {
-            Ok(Some(st)) => break st,
-            Ok(None) => {}
-            Err(err) => {
-                return (
-                    None,
-                    Outcome::Failed(format!("cannot wait for the simulator: {err}")),
-                )
-            }
+    let pgid = nix::unistd::Pid::from_raw(child.id() as i32);
+    let (exited_tx, exited_rx) = std::sync::mpsc::channel::<()>();
+    let (status, kill) = std::thread::scope(|s| {
+        let watchdog = s.spawn(move || watch(pgid, deadline, stop, &exited_rx));
+        let status = child.wait();
+        let _ = exited_tx.send(());
+        (status, watchdog.join().unwrap_or(None))
+    });
+    let status = match status {
+        Ok(st) => st,
+        Err(err) => {
+            return (
+                None,
+                Outcome::Failed(format!("cannot wait for the simulator: {err}")),
+            )
         }
-        if stop.load(Ordering::SeqCst) {
-            // Ask the simulator to stop (SIGTERM to its process group), then insist.
-            let pgid = nix::unistd::Pid::from_raw(child.id() as i32);
-            let _ = nix::sys::signal::killpg(pgid, nix::sys::signal::Signal::SIGTERM);
-            let grace = Instant::now() + TERM_GRACE;
-            while Instant::now() < grace {
-                if let Ok(Some(_)) = child.try_wait() {
-                    break;
-                }
-                std::thread::sleep(Duration::from_millis(20));
-            }
-            let _ = nix::sys::signal::killpg(pgid, nix::sys::signal::Signal::SIGKILL);
-            let _ = child.wait();
-            return (None, Outcome::Interrupted);
-        }
-        if Instant::now() >= deadline {
-            // Kill the whole process group: simulators often start helpers.
-            let pgid = nix::unistd::Pid::from_raw(child.id() as i32);
-            let _ = nix::sys::signal::killpg(pgid, nix::sys::signal::Signal::SIGKILL);
-            let _ = child.wait();
+    };
+    match kill {
+        Some(Kill::Interrupted) => return (None, Outcome::Interrupted),
+        Some(Kill::TimedOut) => {
             return (
                 None,
                 Outcome::Failed(format!(
                     "timed out after {} s (simulator.timeout_s); process group killed",
                     sim.timeout_s
                 )),
-            );
+            )
         }
-        std::thread::sleep(pause);
-        pause = (pause * 2).min(Duration::from_millis(100));
-    };
+        None => {}
+    }
     let code = status.code();
     if !status.success() {
         let tail = std::fs::read_to_string(dir.join("stderr.txt")).unwrap_or_default();
@@ -653,7 +714,10 @@ fn attempt(
             .join(" | ");
         let why = match code {
             Some(c) => format!("exit code {c}"),
-            None => "killed by a signal".to_string(),
+            None => match std::os::unix::process::ExitStatusExt::signal(&status) {
+                Some(sig) => format!("killed by signal {sig}"),
+                None => "ended without an exit code".to_string(),
+            },
         };
         return (
             code,

@@ -19,7 +19,7 @@ pub use data::{FieldData, FieldRow, Target};
 pub use error::{StudyError, StudyErrors};
 pub use locate::LineIndex;
 pub use validate::{
-    load, parse, CalibrationParams, DesignMethod, DesignParams, Experiment, FileTemplate,
-    KernelChoice, MeanChoice, Noise, OutputFormat, OutputSpec, Parameter, Prior, Simulator, Study,
-    SurrogateParams,
+    load, parse, CalibrationParams, DesignMethod, DesignParams, DesignSpace, Experiment,
+    FileTemplate, KernelChoice, MeanChoice, Noise, OutputFormat, OutputSpec, Parameter, Prior,
+    Simulator, Study, SurrogateParams,
 };

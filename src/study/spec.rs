@@ -155,6 +155,9 @@ pub struct DesignSpec {
     /// Default 1.
     #[serde(default = "default_seed")]
     pub seed: u64,
+    /// Default `range`.
+    #[serde(default)]
+    pub space: DesignSpace,
 }
 
 impl Default for DesignSpec {
@@ -163,6 +166,7 @@ impl Default for DesignSpec {
             method: DesignMethod::default(),
             points: None,
             seed: default_seed(),
+            space: DesignSpace::default(),
         }
     }
 }
@@ -174,11 +178,25 @@ fn default_seed() -> u64 {
 #[derive(Debug, Clone, Copy, Default, Deserialize, serde::Serialize, PartialEq, Eq)]
 #[serde(rename_all = "lowercase")]
 pub enum DesignMethod {
-    /// Latin hypercube.
+    /// Maximin Latin hypercube.
     #[default]
     Lhs,
+    /// Scrambled Sobol' points.
+    Sobol,
     /// Independent uniform points.
     Random,
+}
+
+/// Where the design spreads its points evenly.
+#[derive(Debug, Clone, Copy, Default, Deserialize, serde::Serialize, PartialEq, Eq)]
+#[serde(rename_all = "lowercase")]
+pub enum DesignSpace {
+    /// Evenly over the parameter box.
+    #[default]
+    Range,
+    /// Evenly in probability under each parameter's prior (truncated to its range):
+    /// denser where the prior puts mass.
+    Prior,
 }
 
 #[derive(Debug, Clone, Default, Deserialize)]

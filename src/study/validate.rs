@@ -10,7 +10,10 @@ use super::spec::*;
 use std::collections::{BTreeMap, BTreeSet};
 use std::path::{Component, Path, PathBuf};
 
-pub use super::spec::{DesignMethod, KernelChoice, MeanChoice};
+pub use super::spec::{DesignMethod, DesignSpace, KernelChoice, MeanChoice};
+
+/// Placeholders assay provides itself; parameters and settings may not take these names.
+pub const RESERVED: [&str; 3] = ["run_dir", "run_id", "study_dir"];
 
 /// A prior, truncated to the parameter's range.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -68,8 +71,13 @@ pub struct Simulator {
 /// Measurement noise of one experiment.
 #[derive(Debug, Clone, PartialEq)]
 pub enum Noise {
+    /// Known sd, the same for every row.
     Sd(f64),
+    /// Known sd per row, from this data column.
     Column(String),
+    /// Unknown variance σ², the same for every row, with an inverse-gamma prior
+    /// p(σ²) ∝ (σ²)^(−shape−1) exp(−scale/σ²); sampled with the parameters.
+    Unknown { shape: f64, scale: f64 },
 }
 
 /// One experiment with its data.
@@ -89,6 +97,7 @@ pub struct DesignParams {
     pub method: DesignMethod,
     pub points: usize,
     pub seed: u64,
+    pub space: DesignSpace,
 }
 
 /// Surrogate settings after defaults.
@@ -304,7 +313,7 @@ pub fn parse(
                     p.name
                 ),
             );
-        } else if p.name == "run_dir" || p.name == "run_id" {
+        } else if RESERVED.contains(&p.name.as_str()) {
             c.err(
                 format!("{key}.name"),
                 format!("`{}` is reserved for the run folder placeholders", p.name),
@@ -467,7 +476,7 @@ pub fn parse(
                     format!("{key}.settings.{k}"),
                     format!("`{k}` is not a valid setting name (expected [A-Za-z_][A-Za-z0-9_]*)"),
                 );
-            } else if parameters.iter().any(|p| &p.name == k) || k == "run_dir" || k == "run_id" {
+            } else if parameters.iter().any(|p| &p.name == k) || RESERVED.contains(&k.as_str()) {
                 c.err(
                     format!("{key}.settings.{k}"),
                     format!("setting `{k}` clashes with a parameter or run placeholder"),
@@ -487,18 +496,25 @@ pub fn parse(
                 Noise::Sd(*sd)
             }
             NoiseSpec::SdColumn(col) => Noise::Column(col.clone()),
-            NoiseSpec::Unknown { .. } => {
-                c.err(
-                    format!("{key}.noise.unknown"),
-                    "an unknown noise variance is not supported in this version; give {sd: v} or {sd_column: name}",
-                );
-                Noise::Sd(1.0)
+            NoiseSpec::Unknown { shape, scale } => {
+                for (name, v) in [("shape", shape), ("scale", scale)] {
+                    if !(*v > 0.0 && v.is_finite()) {
+                        c.err(
+                            format!("{key}.noise.unknown.{name}"),
+                            format!("inverse-gamma {name} {v} must be > 0"),
+                        );
+                    }
+                }
+                Noise::Unknown {
+                    shape: *shape,
+                    scale: *scale,
+                }
             }
         };
         let data_path = dir.join(&e.data);
         let sd_col = match &noise {
             Noise::Column(c) => Some(c.as_str()),
-            Noise::Sd(_) => None,
+            Noise::Sd(_) | Noise::Unknown { .. } => None,
         };
         let data = match read(&data_path) {
             Err(err) => {
@@ -527,6 +543,7 @@ pub fn parse(
         known.extend(settings.keys().cloned());
         known.insert("run_dir".into());
         known.insert("run_id".into());
+        known.insert("study_dir".into());
         for (j, arg) in sim.command.iter().enumerate() {
             check_placeholders(
                 &mut c,
@@ -576,6 +593,16 @@ pub fn parse(
             format!("{points} points are too few (at least 2)"),
         );
     }
+    if d.method == DesignMethod::Sobol && spec.parameters.len() > crate::design::SOBOL_MAX_DIM {
+        c.err(
+            "design.method",
+            format!(
+                "sobol holds direction numbers for at most {} parameters, the study has {}; use `lhs`",
+                crate::design::SOBOL_MAX_DIM,
+                spec.parameters.len()
+            ),
+        );
+    }
     if spec.execution.jobs == Some(0) {
         c.err("execution.jobs", "jobs must be at least 1");
     }
@@ -620,6 +647,7 @@ pub fn parse(
             method: d.method,
             points,
             seed: d.seed,
+            space: d.space,
         },
         jobs: spec.execution.jobs,
         surrogate: SurrogateParams {

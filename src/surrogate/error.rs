@@ -8,7 +8,7 @@ pub enum SurrogateError {
     NotPositiveDefinite { n: usize, jitter: f64 },
     #[error("the trend with {m} coefficients cannot be estimated from {n} runs: use `surrogate.mean: constant` or add runs")]
     TrendNotIdentifiable { n: usize, m: usize },
-    #[error("experiment `{experiment}` has {n} finished runs; at least {min} are needed to fit a surrogate")]
+    #[error("experiment `{experiment}` has {n} finished runs; at least {min} are needed to fit a surrogate (one per hyperparameter: a length-scale per parameter, the signal variance and the nugget). Run more points (`assay design --add`, `assay run`) or fix the failing runs (`assay status`)")]
     TooFewRuns {
         experiment: String,
         n: usize,
@@ -16,6 +16,10 @@ pub enum SurrogateError {
     },
     #[error("a hyperparameter is not a finite number (the search diverged)")]
     NonFiniteHyperparameters,
+    #[error("the hyperparameter search used its budget of {max} factorisations")]
+    BudgetExhausted { max: u64 },
+    #[error("unknown {what} `{name}` in the surrogate record")]
+    UnknownName { what: &'static str, name: String },
     #[error("every start of the hyperparameter search failed for `{output}`: {reason}")]
     OptimisationFailed { output: String, reason: String },
 }

@@ -254,25 +254,23 @@ impl Gp {
             .collect();
         let mut grad = vec![0.0; d + 2];
         let mut t = vec![0.0; d];
+        // W = ααᵀ − P is symmetric: visit each pair once and double the off-diagonal.
         for a in 0..n {
-            for b in 0..n {
-                let w = self.alpha[a] * self.alpha[b] - p[[a, b]];
+            let w = self.alpha[a] * self.alpha[a] - p[[a, a]];
+            grad[0] += w * (s2 + g);
+            grad[d + 1] += w * g;
+            for b in (a + 1)..n {
+                let w = 2.0 * (self.alpha[a] * self.alpha[b] - p[[a, b]]);
                 let mut r2 = 0.0;
                 for dd in 0..d {
                     t[dd] = (self.x[[a, dd]] - self.x[[b, dd]]) * inv_l[dd];
                     r2 += t[dd] * t[dd];
                 }
-                let r = r2.sqrt();
-                grad[0] += w * s2 * self.kernel.corr(r);
-                if a == b {
-                    grad[0] += w * g;
-                }
-                let gr = s2 * self.kernel.neg_dcorr_over_r(r);
+                let (c, gr) = self.kernel.corr_and_neg_d(r2.sqrt());
+                grad[0] += w * s2 * c;
+                let wg = w * s2 * gr;
                 for dd in 0..d {
-                    grad[1 + dd] += w * gr * t[dd] * t[dd];
-                }
-                if a == b {
-                    grad[d + 1] += w * g;
+                    grad[1 + dd] += wg * t[dd] * t[dd];
                 }
             }
         }

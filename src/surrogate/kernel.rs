@@ -55,6 +55,26 @@ impl Kernel {
         }
     }
 
+    /// (ρ(r), g(r)) with one exponential.
+    pub fn corr_and_neg_d(self, r: f64) -> (f64, f64) {
+        match self {
+            Kernel::Matern52 => {
+                let s = 5f64.sqrt() * r;
+                let e = (-s).exp();
+                ((1.0 + s + s * s / 3.0) * e, 5.0 / 3.0 * (1.0 + s) * e)
+            }
+            Kernel::Matern32 => {
+                let s = 3f64.sqrt() * r;
+                let e = (-s).exp();
+                ((1.0 + s) * e, 3.0 * e)
+            }
+            Kernel::SquaredExponential => {
+                let e = (-0.5 * r * r).exp();
+                (e, e)
+            }
+        }
+    }
+
     /// g(r) = −ρ'(r)/r, finite at r = 0; ∂ρ/∂ln ℓ_d = g(r)·(Δ_d/ℓ_d)².
     pub fn neg_dcorr_over_r(self, r: f64) -> f64 {
         match self {
@@ -86,6 +106,9 @@ mod tests {
                 assert!((fd - k.neg_dcorr_over_r(r)).abs() < 1e-7, "{k:?} at {r}");
             }
             assert_eq!(k.corr(0.0), 1.0);
+            for r in [0.0, 0.3, 2.5] {
+                assert_eq!(k.corr_and_neg_d(r), (k.corr(r), k.neg_dcorr_over_r(r)));
+            }
         }
     }
 }

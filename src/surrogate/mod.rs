@@ -17,6 +17,6 @@ pub use error::SurrogateError;
 pub use fit::{fit_hyperparameters, FitOutcome, FitParams, HyperBounds};
 pub use gp::{Gp, Hyper, Trend};
 pub use kernel::Kernel;
-pub use model::{fit_surrogate, ExperimentModel, FittedSurrogate, OutputModel, MIN_RUNS};
+pub use model::{fit_surrogate, min_runs, ExperimentModel, FittedSurrogate, OutputModel, MIN_RUNS};
 pub use validation::{Validation, ZSummary};
 pub use wire::SurrogateBody;

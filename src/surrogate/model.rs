@@ -11,9 +11,14 @@ use crate::study::{MeanChoice, Parameter, SurrogateParams};
 use ndarray::{Array1, Array2};
 use rayon::prelude::*;
 
-/// Runs needed per experiment before a GP is fitted (common practice: fewer runs than
-/// this leave the hyperparameters unidentified).
+/// Fewest runs per experiment for any GP (common practice).
 pub const MIN_RUNS: usize = 3;
+
+/// Runs needed for `d` parameters: at least one per hyperparameter (d length-scales,
+/// the signal variance and the nugget), and never fewer than [`MIN_RUNS`].
+pub fn min_runs(d: usize) -> usize {
+    MIN_RUNS.max(d + 2)
+}
 
 /// Starts of the hyperparameter search per output.
 pub const N_STARTS: usize = 6;
@@ -214,11 +219,12 @@ fn fit_experiment(
     stream_base: u64,
 ) -> Result<ExperimentModel, SurrogateError> {
     let n = er.inputs.len();
-    if n < MIN_RUNS {
+    let min = min_runs(lo.len());
+    if n < min {
         return Err(SurrogateError::TooFewRuns {
             experiment: er.experiment.clone(),
             n,
-            min: MIN_RUNS,
+            min,
         });
     }
     let x = unit_inputs(&er.inputs, lo, hi);

@@ -84,6 +84,34 @@ impl Validation {
     }
 }
 
+/// Q² below this: the surrogate explains too little of the runs' variation (common practice).
+pub const Q2_POOR: f64 = 0.9;
+/// LOO coverage of the 95 % band below this: the predictive variance is too small
+/// (Bastos & O'Hagan 2009 read the standardised errors the same way).
+pub const COVERAGE_POOR: f64 = 0.8;
+
+impl Validation {
+    /// A plain warning when the leave-one-out validation says the surrogate is poor.
+    pub fn verdict(&self) -> Option<String> {
+        let mut why = Vec::new();
+        if self.q2 < Q2_POOR {
+            why.push(format!("Q² {:.3} < {Q2_POOR}", self.q2));
+        }
+        if self.coverage95 < COVERAGE_POOR {
+            why.push(format!(
+                "95 % coverage {:.2} < {COVERAGE_POOR}",
+                self.coverage95
+            ));
+        }
+        (!why.is_empty()).then(|| {
+            format!(
+                "the surrogate is poor ({}): calibration against it is not trustworthy; add runs (`assay design --add`) or narrow the parameter ranges",
+                why.join(", ")
+            )
+        })
+    }
+}
+
 /// Pool the validations of several outputs (all errors together).
 pub fn summarize(parts: &[&Validation]) -> Validation {
     let mut v = Validation::default();
@@ -95,4 +123,27 @@ pub fn summarize(parts: &[&Validation]) -> Validation {
     }
     v.finish();
     v
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn summary_statistics_by_hand() {
+        // y = (1, 2, 3), LOO means (1.5, 2, 2), sds (0.5, 1, 0.25): errors (−0.5, 0, 1),
+        // z = (−1, 0, 4); SSE = 1.25, SST = 2, Q² = 1 − 1.25/2 = 0.375; 2 of 3 |z| ≤ 1.96.
+        let v = Validation::from_loo(&[1.0, 2.0, 3.0], &[1.5, 2.0, 2.0], &[0.5, 1.0, 0.25]);
+        assert!((v.rmse - (1.25f64 / 3.0).sqrt()).abs() < 1e-15);
+        assert!((v.q2 - 0.375).abs() < 1e-15);
+        assert!((v.coverage95 - 2.0 / 3.0).abs() < 1e-15);
+        assert_eq!(v.standardized_error.max_abs, 4.0);
+        let w = v.verdict().expect("a poor surrogate is called poor");
+        assert!(
+            w.contains("Q² 0.375 < 0.9") && w.contains("coverage 0.67 < 0.8"),
+            "{w}"
+        );
+        let good = Validation::from_loo(&[1.0, 2.0, 3.0], &[1.0, 2.0, 3.01], &[0.1, 0.1, 0.1]);
+        assert_eq!(good.verdict(), None);
+    }
 }

@@ -20,7 +20,8 @@ pub struct HyperWire {
     /// (ln σ², ln ℓ…, ln η) on standardised outputs and unit-box inputs (η = nugget/σ²): what the
     /// surrogate is rebuilt from.
     pub ln_internal: Vec<f64>,
-    /// Jitter added to factor the covariance (0 when none was needed).
+    /// Jitter added to the covariance's diagonal to factor it, output units squared
+    /// (0 when none was needed).
     pub jitter: f64,
 }
 
@@ -50,6 +51,9 @@ pub struct TrainingWire {
 pub struct ExperimentWire {
     pub name: String,
     pub n_runs: usize,
+    /// Design points without a finished run (failed or not yet run), left out of the fit.
+    #[serde(default)]
+    pub n_excluded: usize,
     pub parameters: Vec<String>,
     pub lower: Vec<f64>,
     pub upper: Vec<f64>,
@@ -76,6 +80,7 @@ impl SurrogateBody {
             .map(|e| ExperimentWire {
                 name: e.experiment.clone(),
                 n_runs: e.point_ids.len(),
+                n_excluded: 0,
                 parameters: names.to_vec(),
                 lower: e.lo.clone(),
                 upper: e.hi.clone(),
@@ -106,7 +111,7 @@ impl SurrogateBody {
                                     * gp.hyper.ln_signal_var.exp()
                                     * s2,
                                 ln_internal: gp.hyper.to_vec(),
-                                jitter: gp.jitter,
+                                jitter: gp.jitter * s2,
                             }
                         }),
                         ln_marginal_likelihood: o.gp.as_ref().map(|g| g.ln_marginal_likelihood),
@@ -137,14 +142,26 @@ impl SurrogateBody {
     pub fn to_fitted(&self) -> Result<FittedSurrogate, SurrogateError> {
         crate::init_blas();
         let kernel = match self.kernel.as_str() {
+            "matern52" => Kernel::Matern52,
             "matern32" => Kernel::Matern32,
             "squared-exponential" => Kernel::SquaredExponential,
-            _ => Kernel::Matern52,
+            other => {
+                return Err(SurrogateError::UnknownName {
+                    what: "kernel",
+                    name: other.into(),
+                })
+            }
         };
         let trend = match self.mean.as_str() {
+            "constant" => Trend::Constant,
             "linear" => Trend::Linear,
             "zero" => Trend::Zero,
-            _ => Trend::Constant,
+            other => {
+                return Err(SurrogateError::UnknownName {
+                    what: "mean",
+                    name: other.into(),
+                })
+            }
         };
         let mut experiments = Vec::new();
         for e in &self.experiments {

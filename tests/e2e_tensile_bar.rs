@@ -1,0 +1,78 @@
+//! End to end on the finite-element example: `assay all` on models/tensile-bar, whose
+//! invented field data were made from E = 70 GPa, σ0 = 270 MPa, Q = 50 MPa, b = 25
+//! (models/tensile-bar/DATA.md). The 95 % intervals must contain those values.
+
+use serde::Deserialize;
+use std::collections::BTreeMap;
+use std::path::PathBuf;
+use std::process::Command;
+
+/// Values used to invent the data (models/tensile-bar/DATA.md).
+const TRUTH: [(&str, f64); 4] = [("E", 70.0), ("sigma0", 270.0), ("Q", 50.0), ("b", 25.0)];
+/// A looser convergence bound than the 1.01 warning threshold: this test checks that the
+/// calibration is right, the warnings check that it is precise.
+const RHAT_MAX: f64 = 1.05;
+
+#[derive(Deserialize)]
+struct Summary {
+    q025: f64,
+    q975: f64,
+}
+
+#[derive(Deserialize)]
+struct Diag {
+    rhat: f64,
+}
+
+#[derive(Deserialize)]
+struct Posterior {
+    parameters: BTreeMap<String, Summary>,
+    diagnostics: BTreeMap<String, Diag>,
+}
+
+fn root() -> PathBuf {
+    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
+}
+
+#[test]
+fn calibration_recovers_the_invented_material_constants() {
+    if !root().join("target/release/tensile-bar").exists() {
+        let cargo = std::env::var("CARGO").unwrap_or_else(|_| "cargo".into());
+        assert!(Command::new(cargo)
+            .args(["build", "--release", "-p", "tensile-bar"])
+            .current_dir(root())
+            .status()
+            .unwrap()
+            .success());
+    }
+    let tmp = tempfile::tempdir().unwrap();
+    let out = Command::new(env!("CARGO_BIN_EXE_assay"))
+        .arg("--runs")
+        .arg(tmp.path())
+        .args(["--quiet", "all", "models/tensile-bar/study.yaml"])
+        .current_dir(root())
+        .output()
+        .unwrap();
+    assert!(
+        out.status.success(),
+        "{}\n{}",
+        String::from_utf8_lossy(&out.stdout),
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let text = std::fs::read_to_string(tmp.path().join("tensile-bar/posterior.yaml")).unwrap();
+    let p: Posterior = serde_yaml::from_str(&text).unwrap();
+    for (name, truth) in TRUTH {
+        let s = &p.parameters[name];
+        assert!(
+            s.q025 < truth && truth < s.q975,
+            "{name}: {truth} outside [{}, {}]",
+            s.q025,
+            s.q975
+        );
+        assert!(
+            p.diagnostics[name].rhat < RHAT_MAX,
+            "{name}: rhat {}",
+            p.diagnostics[name].rhat
+        );
+    }
+}
