@@ -182,20 +182,33 @@ pub fn augment_design(c: &Campaign, n: usize) -> Result<Design> {
     Ok(d)
 }
 
+/// Read the record `file` of the campaign, or say which command makes it.
+///
+/// # Errors
+/// A missing record (naming `assay <stage>`) or a malformed one.
+fn read_stage_record<T: serde::de::DeserializeOwned>(
+    c: &Campaign,
+    file: &str,
+    stage: &str,
+) -> Result<Record<T>> {
+    let path = c.path(file);
+    if !path.exists() {
+        bail!(
+            "no {file} in {}: run `assay {stage} {}` first",
+            c.dir.display(),
+            c.study.file.display()
+        );
+    }
+    read_record(&path)
+}
+
 /// Read `design.yaml`.
 ///
 /// # Errors
 /// A missing or malformed design.
 pub fn load_design(c: &Campaign) -> Result<Design> {
     let path = c.path(DESIGN_FILE);
-    if !path.exists() {
-        bail!(
-            "no design at {}: run `assay design {}` first",
-            path.display(),
-            c.study.file.display()
-        );
-    }
-    let rec: Record<DesignBody> = read_record(&path)?;
+    let rec: Record<DesignBody> = read_stage_record(c, DESIGN_FILE, "design")?;
     rec.body
         .to_design()
         .with_context(|| format!("{} is malformed", path.display()))
@@ -332,18 +345,10 @@ pub fn calibrate_stage(
     stop: &AtomicBool,
     observer: &dyn Observer,
 ) -> Result<PosteriorSummary> {
-    let spath = c.path(SURROGATE_FILE);
-    if !spath.exists() {
-        bail!(
-            "no surrogate at {}: run `assay fit {}` first",
-            spath.display(),
-            c.study.file.display()
-        );
-    }
+    let rec: Record<SurrogateBody> = read_stage_record(c, SURROGATE_FILE, "fit")?;
     let mut clock = c.clock();
     c.hash_study_inputs(&mut clock)?;
-    clock.input_named(SURROGATE_FILE, &spath)?;
-    let rec: Record<SurrogateBody> = read_record(&spath)?;
+    clock.input_named(SURROGATE_FILE, &c.path(SURROGATE_FILE))?;
     let fitted = rec.body.to_fitted()?;
     let mut experiments: Vec<(&dyn Emulator, ExperimentLikelihood)> = Vec::new();
     for e in &c.study.experiments {
@@ -515,16 +520,9 @@ pub fn parse_points(text: &str, file: &Path, names: &[String]) -> Result<Vec<Vec
 /// Also returns how many points lie outside the parameter box (extrapolation).
 pub fn predict_csv(c: &Campaign, points: &[Vec<f64>]) -> Result<(Vec<u8>, usize)> {
     use rayon::prelude::*;
-    let spath = c.path(SURROGATE_FILE);
-    if !spath.exists() {
-        bail!(
-            "no surrogate at {}: run `assay fit {}` first",
-            spath.display(),
-            c.study.file.display()
-        );
-    }
-    let rec: Record<SurrogateBody> = read_record(&spath)?;
-    let fitted = rec.body.to_fitted()?;
+    let fitted = read_stage_record::<SurrogateBody>(c, SURROGATE_FILE, "fit")?
+        .body
+        .to_fitted()?;
     let names = c.study.parameter_names();
     let mut header = names.clone();
     for e in &fitted.experiments {

@@ -301,6 +301,22 @@ fn print_posterior(c: &Campaign) -> Result<()> {
             d.ess_tail
         );
     }
+    for (e, n) in &b.noise {
+        out!(
+            "  {:<10} {:<9} {:>11} {:>10} {:>11} {:>11} {:>11} {:>11} {:>7.3} {:>8.0} {:>8.0}",
+            "noise sd",
+            e,
+            sig(n.sd.mean, 5),
+            sig(n.sd.sd, 3),
+            sig(n.sd.median, 5),
+            sig(n.sd.q025, 5),
+            sig(n.sd.q975, 5),
+            "-",
+            n.diagnostics.rhat,
+            n.diagnostics.ess_bulk,
+            n.diagnostics.ess_tail
+        );
+    }
     for w in &b.warnings {
         out!("  warning: {w}");
     }
