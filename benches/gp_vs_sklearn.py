@@ -29,7 +29,7 @@ def borehole(u):
 def main():
     sizes = [int(a) for a in sys.argv[1:]] or [250, 500, 1000]
     root = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
-    subprocess.run(["cargo", "build", "--release", "--example", "gp_bench"], cwd=root, check=True)
+    subprocess.run(["cargo", "build", "--release", "-p", "assay", "--example", "gp_bench"], cwd=root, check=True)
     exe = os.path.join(root, "target", "release", "examples", "gp_bench")
     rng = np.random.default_rng(7)
     test = rng.random((1000, 8)); yt = borehole(test)
