@@ -10,10 +10,18 @@ use rayon::prelude::*;
 use std::time::Instant;
 
 fn read(path: &str) -> (Array2<f64>, Array1<f64>) {
-    let mut r = csv::ReaderBuilder::new().has_headers(false).from_path(path).expect("csv");
+    let mut r = csv::ReaderBuilder::new()
+        .has_headers(false)
+        .from_path(path)
+        .expect("csv");
     let rows: Vec<Vec<f64>> = r
         .records()
-        .map(|rec| rec.expect("row").iter().map(|v| v.parse().expect("number")).collect())
+        .map(|rec| {
+            rec.expect("row")
+                .iter()
+                .map(|v| v.parse().expect("number"))
+                .collect()
+        })
         .collect();
     let d = rows[0].len() - 1;
     let x = Array2::from_shape_fn((rows.len(), d), |(i, j)| rows[i][j]);
@@ -42,7 +50,11 @@ fn main() {
     let fit = fit_hyperparameters(x.view(), ys.view(), params, "bench", &mut rng).expect("fit");
     let fit_s = t0.elapsed().as_secs_f64();
     let (m, _) = fit.gp.predict(xt.view());
-    let rmse = (m.iter().zip(yt.iter()).map(|(m, t)| (mean + sd * m - t).powi(2)).sum::<f64>()
+    let rmse = (m
+        .iter()
+        .zip(yt.iter())
+        .map(|(m, t)| (mean + sd * m - t).powi(2))
+        .sum::<f64>()
         / yt.len() as f64)
         .sqrt();
     // Prediction with sds, in parallel chunks as `assay predict` does.
