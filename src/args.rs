@@ -23,7 +23,7 @@ pub struct Cli {
     #[arg(long, global = true, value_name = "DIR", default_value = "runs")]
     pub runs: PathBuf,
 
-    /// No progress bars or notes; results and errors only.
+    /// No progress bar: plain progress lines on stderr instead (as when stderr is not a terminal).
     #[arg(long, short, global = true)]
     pub quiet: bool,
 

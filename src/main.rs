@@ -8,7 +8,7 @@ use anyhow::{Context, Result};
 use args::{Cli, Command};
 use assay::calibrate::{Diagnostics, ParameterSummary, PosteriorBody};
 use assay::campaign::{self, Campaign, DesignOutcome, InputError};
-use assay::progress::{Observer, Silent};
+use assay::progress::Observer;
 use assay::record::{read_record, Record};
 use assay::study::{self, Study, StudyErrors};
 use clap::Parser;
@@ -61,10 +61,10 @@ struct Bar {
 }
 
 impl Bar {
-    fn new() -> Self {
+    fn new(plain: bool) -> Self {
         Self {
             bar: ProgressBar::hidden(),
-            plain: !std::io::stderr().is_terminal(),
+            plain: plain || !std::io::stderr().is_terminal(),
             task: std::sync::Mutex::new(String::new()),
             total: AtomicU64::new(0),
             pos: AtomicU64::new(0),
@@ -130,11 +130,8 @@ impl Observer for Bar {
 }
 
 fn observer(quiet: bool) -> Box<dyn Observer> {
-    if quiet {
-        Box::new(Silent)
-    } else {
-        Box::new(Bar::new())
-    }
+    // --quiet: no bar, a few plain lines (as off a terminal).
+    Box::new(Bar::new(quiet))
 }
 
 /// Significant-figure formatting for tables.
