@@ -2,9 +2,12 @@
 //! were made from E = 205 GPa and k_theta = 1.8 MN·m/rad (models/cantilever/DATA.md).
 //! The calibrated 95 % intervals must contain those values.
 
+mod common;
+
+use common::{ensure_model_binary, repo_root};
 use serde::Deserialize;
 use std::collections::BTreeMap;
-use std::path::{Path, PathBuf};
+use std::path::Path;
 use std::process::Command;
 
 /// Values used to invent the data (models/cantilever/DATA.md).
@@ -33,38 +36,20 @@ struct Posterior {
     caution: String,
 }
 
-fn root() -> PathBuf {
-    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
-}
-
-/// The study runs `../../target/release/cantilever`: make sure it exists.
-fn ensure_simulator() {
-    let bin = root().join("target/release/cantilever");
-    if !bin.exists() {
-        let cargo = std::env::var("CARGO").unwrap_or_else(|_| "cargo".into());
-        let st = Command::new(cargo)
-            .args(["build", "--release", "-p", "cantilever"])
-            .current_dir(root())
-            .status()
-            .unwrap();
-        assert!(st.success(), "building the cantilever simulator failed");
-    }
-}
-
 fn assay(runs: &Path, args: &[&str]) -> std::process::Output {
     Command::new(env!("CARGO_BIN_EXE_assay"))
         .arg("--runs")
         .arg(runs)
         .arg("--quiet")
         .args(args)
-        .current_dir(root())
+        .current_dir(repo_root())
         .output()
         .unwrap()
 }
 
 #[test]
 fn calibration_recovers_the_invented_constants() {
-    ensure_simulator();
+    ensure_model_binary("cantilever");
     let tmp = tempfile::tempdir().unwrap();
     let out = assay(tmp.path(), &["all", "models/cantilever/study.yaml"]);
     let stdout = String::from_utf8_lossy(&out.stdout);

@@ -2,9 +2,11 @@
 //! invented field data were made from E = 70 GPa, σ0 = 270 MPa, Q = 50 MPa, b = 25
 //! (models/tensile-bar/DATA.md). The 95 % intervals must contain those values.
 
+mod common;
+
+use common::{ensure_model_binary, repo_root};
 use serde::Deserialize;
 use std::collections::BTreeMap;
-use std::path::PathBuf;
 use std::process::Command;
 
 /// Values used to invent the data (models/tensile-bar/DATA.md).
@@ -30,27 +32,15 @@ struct Posterior {
     diagnostics: BTreeMap<String, Diag>,
 }
 
-fn root() -> PathBuf {
-    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
-}
-
 #[test]
 fn calibration_recovers_the_invented_material_constants() {
-    if !root().join("target/release/tensile-bar").exists() {
-        let cargo = std::env::var("CARGO").unwrap_or_else(|_| "cargo".into());
-        assert!(Command::new(cargo)
-            .args(["build", "--release", "-p", "tensile-bar"])
-            .current_dir(root())
-            .status()
-            .unwrap()
-            .success());
-    }
+    ensure_model_binary("tensile-bar");
     let tmp = tempfile::tempdir().unwrap();
     let out = Command::new(env!("CARGO_BIN_EXE_assay"))
         .arg("--runs")
         .arg(tmp.path())
         .args(["--quiet", "all", "models/tensile-bar/study.yaml"])
-        .current_dir(root())
+        .current_dir(repo_root())
         .output()
         .unwrap();
     assert!(

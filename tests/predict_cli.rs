@@ -1,7 +1,10 @@
 //! `assay predict`: the surrogate as a stand-in for the simulator, checked against the
 //! simulator itself (the closed-form cantilever of models/cantilever).
 
-use std::path::{Path, PathBuf};
+mod common;
+
+use common::{ensure_model_binary, repo_root};
+use std::path::Path;
 use std::process::Command;
 
 /// A prediction must lie within this many predictive sds of the true value, plus an
@@ -9,31 +12,13 @@ use std::process::Command;
 const N_SD: f64 = 4.0;
 const ABS_MM: f64 = 1e-6;
 
-fn root() -> PathBuf {
-    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
-}
-
-fn ensure_simulator() -> PathBuf {
-    let bin = root().join("target/release/cantilever");
-    if !bin.exists() {
-        let cargo = std::env::var("CARGO").unwrap_or_else(|_| "cargo".into());
-        assert!(Command::new(cargo)
-            .args(["build", "--release", "-p", "cantilever"])
-            .current_dir(root())
-            .status()
-            .unwrap()
-            .success());
-    }
-    bin
-}
-
 fn assay(runs: &Path, args: &[&str]) -> std::process::Output {
     Command::new(env!("CARGO_BIN_EXE_assay"))
         .arg("--runs")
         .arg(runs)
         .arg("--quiet")
         .args(args)
-        .current_dir(root())
+        .current_dir(repo_root())
         .output()
         .unwrap()
 }
@@ -65,7 +50,7 @@ fn truth(sim: &Path, e: f64, k: f64, load: f64, dir: &Path) -> Vec<f64> {
 
 #[test]
 fn predictions_agree_with_the_simulator_within_their_sd() {
-    let sim = ensure_simulator();
+    let sim = ensure_model_binary("cantilever");
     let tmp = tempfile::tempdir().unwrap();
     let out = assay(tmp.path(), &["all", "models/cantilever/study.yaml"]);
     assert!(

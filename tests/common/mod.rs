@@ -191,3 +191,26 @@ pub fn line_of(text: &str, needle: &str) -> usize {
     );
     hits[0]
 }
+
+/// The repository root (bundled studies are relative to it).
+pub fn repo_root() -> PathBuf {
+    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
+}
+
+/// Make sure the release binary of a bundled example simulator exists (`make test`
+/// builds it first; a bare `cargo test` builds it here). Bundled studies run
+/// `../../target/release/<name>`.
+pub fn ensure_model_binary(name: &str) -> PathBuf {
+    let bin = repo_root().join("target/release").join(name);
+    if !bin.exists() {
+        let cargo = std::env::var("CARGO").unwrap_or_else(|_| "cargo".into());
+        let ok = std::process::Command::new(cargo)
+            .args(["build", "--release", "-p", name])
+            .current_dir(repo_root())
+            .status()
+            .expect("cargo runs")
+            .success();
+        assert!(ok, "building the {name} simulator failed");
+    }
+    bin
+}
