@@ -4,11 +4,9 @@
 
 mod common;
 
-use common::{ensure_model_binary, repo_root};
+use common::{assay_in_repo as assay, ensure_model_binary};
 use serde::Deserialize;
 use std::collections::BTreeMap;
-use std::path::Path;
-use std::process::Command;
 
 /// Values used to invent the data (models/cantilever/DATA.md).
 const TRUE_E: f64 = 205.0;
@@ -34,17 +32,6 @@ struct Posterior {
     parameters: BTreeMap<String, Summary>,
     diagnostics: BTreeMap<String, Diag>,
     caution: String,
-}
-
-fn assay(runs: &Path, args: &[&str]) -> std::process::Output {
-    Command::new(env!("CARGO_BIN_EXE_assay"))
-        .arg("--runs")
-        .arg(runs)
-        .arg("--quiet")
-        .args(args)
-        .current_dir(repo_root())
-        .output()
-        .unwrap()
 }
 
 #[test]

@@ -4,10 +4,9 @@
 
 mod common;
 
-use common::{ensure_model_binary, repo_root};
+use common::{assay_in_repo, ensure_model_binary};
 use serde::Deserialize;
 use std::collections::BTreeMap;
-use std::process::Command;
 
 /// Values used to invent the data (models/tensile-bar/DATA.md).
 const TRUTH: [(&str, f64); 4] = [("E", 70.0), ("sigma0", 270.0), ("Q", 50.0), ("b", 25.0)];
@@ -36,13 +35,7 @@ struct Posterior {
 fn calibration_recovers_the_invented_material_constants() {
     ensure_model_binary("tensile-bar");
     let tmp = tempfile::tempdir().unwrap();
-    let out = Command::new(env!("CARGO_BIN_EXE_assay"))
-        .arg("--runs")
-        .arg(tmp.path())
-        .args(["--quiet", "all", "models/tensile-bar/study.yaml"])
-        .current_dir(repo_root())
-        .output()
-        .unwrap();
+    let out = assay_in_repo(tmp.path(), &["all", "models/tensile-bar/study.yaml"]);
     assert!(
         out.status.success(),
         "{}\n{}",

@@ -3,7 +3,7 @@
 
 mod common;
 
-use common::{ensure_model_binary, repo_root};
+use common::{assay_in_repo as assay, ensure_model_binary};
 use std::path::Path;
 use std::process::Command;
 
@@ -11,17 +11,6 @@ use std::process::Command;
 /// absolute allowance for round-off in the simulator's printed output (mm).
 const N_SD: f64 = 4.0;
 const ABS_MM: f64 = 1e-6;
-
-fn assay(runs: &Path, args: &[&str]) -> std::process::Output {
-    Command::new(env!("CARGO_BIN_EXE_assay"))
-        .arg("--runs")
-        .arg(runs)
-        .arg("--quiet")
-        .args(args)
-        .current_dir(repo_root())
-        .output()
-        .unwrap()
-}
 
 /// Deflections at stations 0.5, 1, 1.5, 2 m from the simulator itself.
 fn truth(sim: &Path, e: f64, k: f64, load: f64, dir: &Path) -> Vec<f64> {

@@ -59,6 +59,15 @@ fn assay(dir: &Path) -> Command {
     c
 }
 
+fn design(dir: &Path, study: &Path) {
+    assert!(assay(dir)
+        .arg("design")
+        .arg(study)
+        .status()
+        .unwrap()
+        .success());
+}
+
 fn states(dir: &Path) -> Vec<String> {
     let mut out = Vec::new();
     for p in std::fs::read_dir(dir.join("runs/faults/runs")).unwrap() {
@@ -76,12 +85,7 @@ fn kill_9_at_random_moments_never_repeats_a_finished_run() {
     let tmp = tempfile::tempdir().unwrap();
     let dir = tmp.path();
     let study = setup(dir, 60, 0.05);
-    assert!(assay(dir)
-        .args(["design"])
-        .arg(&study)
-        .status()
-        .unwrap()
-        .success());
+    design(dir, &study);
     let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(42);
     for _ in 0..4 {
         let mut child = assay(dir)
@@ -132,12 +136,7 @@ fn two_concurrent_runs_on_one_campaign_exactly_one_proceeds() {
     let tmp = tempfile::tempdir().unwrap();
     let dir = tmp.path();
     let study = setup(dir, 6, 0.4);
-    assert!(assay(dir)
-        .args(["design"])
-        .arg(&study)
-        .status()
-        .unwrap()
-        .success());
+    design(dir, &study);
     let first = assay(dir)
         .args(["run", "--jobs", "1"])
         .arg(&study)
@@ -179,12 +178,7 @@ fn templates_render_exactly() {
     let tmp = tempfile::tempdir().unwrap();
     let dir = tmp.path();
     let study = setup(dir, 2, 0.0);
-    assert!(assay(dir)
-        .args(["design"])
-        .arg(&study)
-        .status()
-        .unwrap()
-        .success());
+    design(dir, &study);
     assert!(assay(dir)
         .args(["run"])
         .arg(&study)

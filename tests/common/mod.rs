@@ -214,3 +214,16 @@ pub fn ensure_model_binary(name: &str) -> PathBuf {
     }
     bin
 }
+
+/// Run `assay --runs RUNS --quiet ARGS…` from the repository root (for the bundled
+/// studies, whose paths are relative to it).
+pub fn assay_in_repo(runs: &Path, args: &[&str]) -> std::process::Output {
+    std::process::Command::new(env!("CARGO_BIN_EXE_assay"))
+        .arg("--runs")
+        .arg(runs)
+        .arg("--quiet")
+        .args(args)
+        .current_dir(repo_root())
+        .output()
+        .expect("assay starts")
+}
