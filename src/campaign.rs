@@ -298,6 +298,64 @@ pub fn status(c: &Campaign) -> Result<StatusReport> {
     })
 }
 
+/// The normal prior on z = logit θ fitted to an earlier calibration's draws (the
+/// `posterior-samples.csv` beside `calibration.prior_from`), with the number of draws
+/// used and of draws left out for lying outside this study's ranges.
+///
+/// # Errors
+/// The file cannot be read, lacks a column for one of this study's parameters, holds a
+/// value that is not a number, or too few draws lie inside the ranges.
+pub fn prior_from_draws(
+    study: &Study,
+    samples: &Path,
+) -> Result<(crate::calibrate::MvnPrior, usize, usize)> {
+    let bad = |m: String| {
+        InputError(format!(
+            "calibration.prior_from: {}: {m}",
+            samples.display()
+        ))
+    };
+    let mut r = csv::Reader::from_path(samples).map_err(|e| bad(e.to_string()))?;
+    let headers = r.headers().map_err(|e| bad(e.to_string()))?.clone();
+    let cols: Vec<usize> = study
+        .parameters
+        .iter()
+        .map(|p| {
+            headers.iter().position(|h| h == p.name).ok_or_else(|| {
+                bad(format!(
+                    "no column `{}` (the earlier calibration must have this study's parameters)",
+                    p.name
+                ))
+            })
+        })
+        .collect::<Result<_, _>>()?;
+    let mut z = Vec::new();
+    let mut outside = 0;
+    for (k, rec) in r.records().enumerate() {
+        let rec = rec.map_err(|e| bad(e.to_string()))?;
+        let mut row = Vec::with_capacity(cols.len());
+        let mut inside = true;
+        for (p, &i) in study.parameters.iter().zip(&cols) {
+            let v: f64 = rec.get(i).unwrap_or("").parse().map_err(|_| {
+                bad(format!(
+                    "line {}: `{}` is not a number",
+                    k + 2,
+                    rec.get(i).unwrap_or("")
+                ))
+            })?;
+            inside &= v > p.lo && v < p.hi;
+            row.push(crate::calibrate::Transform { lo: p.lo, hi: p.hi }.to_unconstrained(v));
+        }
+        if inside {
+            z.push(row);
+        } else {
+            outside += 1;
+        }
+    }
+    let mvn = crate::calibrate::MvnPrior::fit(&z).map_err(bad)?;
+    Ok((mvn, z.len(), outside))
+}
+
 /// Fit the surrogate to the finished runs and write `surrogate.yaml`.
 pub fn fit_stage(c: &Campaign) -> Result<(FittedSurrogate, BTreeMap<String, usize>)> {
     let design = load_design(c)?;
@@ -389,9 +447,25 @@ pub fn calibrate_stage(
         warmup: cal.warmup,
         draws: cal.draws,
         seed: cal.seed,
+        kind: cal.sampler,
+        walkers: cal.walkers,
+        until_converged: cal.until_converged,
     };
     clock.seed("calibration", cal.seed);
-    let post = LogPosterior::new(c.study.parameters.clone(), experiments);
+    let mut post = LogPosterior::new(c.study.parameters.clone(), experiments);
+    if let Some(path) = &cal.prior_from {
+        let samples = path.with_file_name("posterior-samples.csv");
+        clock.input_named(&path.display().to_string(), path)?;
+        clock.input_named(&samples.display().to_string(), &samples)?;
+        let (mvn, used, outside) = prior_from_draws(&c.study, &samples)?;
+        if outside > 0 {
+            observer.note(&format!(
+                "prior_from: {outside} of {} earlier draws lie outside this study's ranges and were left out",
+                used + outside
+            ));
+        }
+        post = post.with_mvn_prior(mvn);
+    }
     let chains = sample(&post, &params, stop, observer);
     let names = c.study.parameter_names();
     let noise_names = post.noise_names();
@@ -429,6 +503,7 @@ pub fn calibrate_stage(
     let body = PosteriorBody::new(&summary, &chains, &params, n_eval);
     let mut record = Record::new("posterior", clock.finish(), body);
     record.body.samples_sha256 = Some(sha256_file(&samples_path)?);
+    record.body.settings.prior_from = cal.prior_from.as_ref().map(|p| p.display().to_string());
     write_record(&c.path(POSTERIOR_FILE), &record)?;
     Ok(summary)
 }
@@ -467,6 +542,10 @@ pub fn fit_inputs(c: &Campaign) -> Result<Vec<PathBuf>> {
 pub fn calibrate_inputs(c: &Campaign) -> Vec<PathBuf> {
     let mut v = c.study.input_files();
     v.push(c.path(SURROGATE_FILE));
+    if let Some(p) = &c.study.calibration.prior_from {
+        v.push(p.clone());
+        v.push(p.with_file_name("posterior-samples.csv"));
+    }
     v
 }
 

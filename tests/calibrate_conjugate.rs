@@ -46,12 +46,7 @@ fn check(mu0: f64, tau0: f64, sigma: f64, ys: &[f64], seed: u64) {
     let lik = ExperimentLikelihood::from_values("e", &[ys.to_vec()], &[vec![sigma; ys.len()]]);
     let em = Identity;
     let post = LogPosterior::new(vec![p], vec![(&em as &dyn Emulator, lik)]);
-    let params = SamplerParams {
-        chains: 4,
-        warmup: 2000,
-        draws: 5000,
-        seed,
-    };
+    let params = SamplerParams::metropolis(4, 2000, 5000, seed);
     let chains = sample(&post, &params, &AtomicBool::new(false), &Silent);
     let s = summarize(&["theta".into()], &[], &chains);
     let ps = s.parameters[0];

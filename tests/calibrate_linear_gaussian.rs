@@ -116,12 +116,7 @@ fn quadratic_curve_with_normal_priors_matches_the_linear_gaussian_posterior() {
     let lik = ExperimentLikelihood::from_values("curve", &values, &sds);
     let em = Quadratic;
     let post = LogPosterior::new(parameters, vec![(&em as &dyn Emulator, lik)]);
-    let params = SamplerParams {
-        chains: 4,
-        warmup: 4000,
-        draws: 20000,
-        seed: 101,
-    };
+    let params = SamplerParams::metropolis(4, 4000, 20000, 101);
     let chains = sample(&post, &params, &AtomicBool::new(false), &Silent);
     let s = summarize(&names, &[], &chains);
     for j in 0..3 {

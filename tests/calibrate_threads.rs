@@ -53,12 +53,7 @@ fn run(threads: usize) -> Vec<Chain> {
     );
     let em = Line;
     let post = LogPosterior::new(parameters, vec![(&em as &dyn Emulator, lik)]);
-    let params = SamplerParams {
-        chains: 4,
-        warmup: 500,
-        draws: 1000,
-        seed: 77,
-    };
+    let params = SamplerParams::metropolis(4, 500, 1000, 77);
     rayon::ThreadPoolBuilder::new()
         .num_threads(threads)
         .build()

@@ -89,12 +89,7 @@ fn check(ys: &[f64], a: f64, b: f64, seed: u64) {
     let em = Identity;
     let post = LogPosterior::new(vec![p], vec![(&em as &dyn Emulator, lik)]);
     assert_eq!(post.noise_names(), vec!["e".to_string()]);
-    let params = SamplerParams {
-        chains: 4,
-        warmup: 3000,
-        draws: 20000,
-        seed,
-    };
+    let params = SamplerParams::metropolis(4, 3000, 20000, seed);
     let chains = sample(&post, &params, &AtomicBool::new(false), &Silent);
     let s = summarize(&["mu".into()], &post.noise_names(), &chains);
     let mu = s.parameters[0];

@@ -454,3 +454,86 @@ fn an_unknown_command_is_bad_input() {
     assert_eq!(out.status.code(), Some(EXIT_BAD_INPUT));
     assert!(String::from_utf8_lossy(&out.stderr).contains("frobnicate"));
 }
+
+#[test]
+fn calibration_and_slurm_options_are_checked_with_their_lines() {
+    let env = Env::new();
+    let base = env.minimal_study("ok");
+    let cases = [
+        (
+            "seed: 3}",
+            "seed: 3, sampler: ensemble, walkers: 7}",
+            "calibration.walkers",
+            "7 walkers: the ensemble needs an even number, at least 4 and more than the 2 parameters",
+        ),
+        (
+            "seed: 3}",
+            "seed: 3, walkers: 8}",
+            "calibration.walkers",
+            "walkers belong to `sampler: ensemble`",
+        ),
+        (
+            "seed: 3}",
+            "seed: 3, max_draws: 500}",
+            "calibration.max_draws",
+            "max_draws belongs to `until_converged: true`",
+        ),
+        (
+            "seed: 3}",
+            "seed: 3, until_converged: true, max_draws: 50}",
+            "calibration.max_draws",
+            "max_draws 50 is less than draws 100",
+        ),
+    ];
+    for (from, to, key, msg) in cases {
+        let text = edit(&base, from, to);
+        let line = line_of(&text, to);
+        let e = one_error(&env, &text, line, key);
+        assert_eq!(message(&e, &env.path("study.yaml"), line, key), msg);
+    }
+    let text = edit(
+        &base,
+        "seed: 3}",
+        "seed: 3, prior_from: nowhere/posterior.yaml}",
+    );
+    let line = line_of(&text, "prior_from");
+    let e = one_error(&env, &text, line, "calibration.prior_from");
+    assert!(
+        e.contains("no such file:") && e.contains("nowhere/posterior.yaml"),
+        "{e}"
+    );
+
+    let slurm = [
+        (
+            "partition: \"my part\"",
+            "execution.slurm.partition",
+            "`my part` is not a Slurm name (letters, digits, `._-,+`)",
+        ),
+        (
+            "mem: 4GB",
+            "execution.slurm.mem",
+            "`4GB` is not a Slurm memory size (a number with K, M, G or T)",
+        ),
+        (
+            "time: \"1 hour\"",
+            "execution.slurm.time",
+            "`1 hour` is not a Slurm time (`MM`, `HH:MM:SS`, `D-HH:MM`)",
+        ),
+        (
+            "extra_args: [\"constraint=avx2\"]",
+            "execution.slurm.extra_args",
+            "`constraint=avx2` is not an sbatch option (options start with `-`)",
+        ),
+        (
+            "array_limit: 0",
+            "execution.slurm.array_limit",
+            "must be at least 1",
+        ),
+    ];
+    for (kv, key, msg) in slurm {
+        let text = format!("{base}execution:\n  backend: slurm\n  slurm:\n    {kv}\n");
+        let line = line_of(&text, kv);
+        let e = one_error(&env, &text, line, key);
+        assert_eq!(message(&e, &env.path("study.yaml"), line, key), msg);
+    }
+}

@@ -7,6 +7,7 @@
 //! Must not: open files, print, or create its own RNG (streams come from one seed).
 
 mod diagnostics;
+pub mod ensemble;
 mod likelihood;
 mod posterior;
 mod prior;
@@ -16,8 +17,8 @@ mod summary;
 pub use diagnostics::{ess_bulk, ess_tail, rhat, Diagnostics};
 pub use likelihood::{Emulator, ExperimentLikelihood};
 pub use posterior::LogPosterior;
-pub use prior::{ln_prior, InverseGamma, Transform};
-pub use sampler::{sample, Chain, SamplerParams, Termination};
+pub use prior::{ln_prior, InverseGamma, MvnPrior, Transform};
+pub use sampler::{converged, sample, Chain, SamplerParams, Termination};
 pub use summary::{
     summarize, Correlation, Marginal, Mcse, NoiseMcse, NoiseSummary, ParameterSummary,
     PosteriorBody, PosteriorSummary, ESS_WARN, RHAT_WARN,

@@ -6,7 +6,7 @@
 //! The sampler works on z = (logit θ, ln σ²).
 
 use super::likelihood::{Emulator, ExperimentLikelihood};
-use super::prior::{ln_prior, InverseGamma, Transform};
+use super::prior::{ln_prior, InverseGamma, MvnPrior, Transform};
 use crate::study::Parameter;
 use std::sync::atomic::{AtomicU64, Ordering};
 
@@ -20,6 +20,9 @@ pub struct LogPosterior<'a> {
     noise_slot: Vec<Option<usize>>,
     /// Evaluations of this density (all chains).
     pub n_evaluations: AtomicU64,
+    /// A joint prior on z = logit θ that replaces the per-parameter priors
+    /// (`calibration.prior_from`).
+    mvn_prior: Option<MvnPrior>,
 }
 
 impl<'a> LogPosterior<'a> {
@@ -47,7 +50,17 @@ impl<'a> LogPosterior<'a> {
             experiments,
             noise_slot,
             n_evaluations: AtomicU64::new(0),
+            mvn_prior: None,
         }
+    }
+
+    /// Replace the per-parameter priors by a normal on z = logit θ (the state's first
+    /// [`Self::n_parameters`] coordinates). On the constrained scale its density is
+    /// N(z(θ); μ, Σ) / Π |dθ_i/dz_i|.
+    pub fn with_mvn_prior(mut self, prior: MvnPrior) -> Self {
+        assert_eq!(prior.mean.len(), self.n_parameters());
+        self.mvn_prior = Some(prior);
+        self
     }
 
     /// Length of the sampled state: parameters plus estimated noise variances.
@@ -124,12 +137,35 @@ impl<'a> LogPosterior<'a> {
         let d = self.n_parameters();
         debug_assert_eq!(x.len(), self.dim());
         let (theta, noise_var) = x.split_at(d);
-        let mut lp: f64 = self
-            .parameters
-            .iter()
-            .zip(theta)
-            .map(|(p, x)| ln_prior(p, *x))
-            .sum();
+        let mut lp: f64 = match &self.mvn_prior {
+            None => self
+                .parameters
+                .iter()
+                .zip(theta)
+                .map(|(p, x)| ln_prior(p, *x))
+                .sum(),
+            Some(mvn) => {
+                if self
+                    .parameters
+                    .iter()
+                    .zip(theta)
+                    .any(|(p, x)| !(*x > p.lo && *x < p.hi))
+                {
+                    return f64::NEG_INFINITY;
+                }
+                let z: Vec<f64> = theta
+                    .iter()
+                    .zip(&self.transforms)
+                    .map(|(x, t)| t.to_unconstrained(*x))
+                    .collect();
+                let ln_jac: f64 = z
+                    .iter()
+                    .zip(&self.transforms)
+                    .map(|(z, t)| t.ln_jacobian(*z))
+                    .sum();
+                mvn.ln_density(&z) - ln_jac
+            }
+        };
         for ((_, lik), slot) in self.experiments.iter().zip(&self.noise_slot) {
             if let (Some(k), Some(prior)) = (slot, lik.noise_prior()) {
                 lp += prior.ln_density(noise_var[*k]);

@@ -2,6 +2,8 @@
 //! inverse-gamma prior of an unknown noise variance.
 
 use crate::study::{Parameter, Prior};
+use ndarray::{Array1, Array2, Axis};
+use ndarray_linalg::{Cholesky, Diag, SolveTriangular, UPLO};
 
 /// ln of the prior density at `x`, up to the truncation constant (constant in x);
 /// −∞ outside the range.
@@ -108,6 +110,73 @@ mod tests {
             let fd = (t.to_constrained(z + h) - t.to_constrained(z - h)) / (2.0 * h);
             assert!((fd.ln() - t.ln_jacobian(z)).abs() < 1e-6, "z = {z}");
             assert!((t.to_unconstrained(t.to_constrained(z)) - z).abs() < 1e-8);
+        }
+    }
+}
+
+/// A multivariate normal prior on the unconstrained parameters z = logit θ, fitted to
+/// the draws of an earlier calibration (`calibration.prior_from`): sequential updating
+/// when new test data arrive.
+///
+/// The approximation: the earlier posterior is replaced by the normal with the same mean
+/// and covariance in z. It keeps the correlations between the parameters and is exact
+/// when the earlier posterior is normal in z; skewness and heavier tails beyond that are
+/// lost, and a posterior piled against a range limit is poorly described (its z runs
+/// off towards ±∞). Check the earlier posterior's marginals before relying on it.
+///
+/// # Formula
+/// ln N(z; μ, Σ) = −½ (z − μ)ᵀ Σ⁻¹ (z − μ) − ½ ln |Σ| − (d/2) ln 2π, with Σ = L Lᵀ
+/// (Cholesky): (z − μ)ᵀ Σ⁻¹ (z − μ) = |L⁻¹ (z − μ)|², ln |Σ| = 2 Σ ln L_ii.
+#[derive(Debug, Clone, PartialEq)]
+pub struct MvnPrior {
+    pub mean: Array1<f64>,
+    /// Lower Cholesky factor of the covariance (LAPACK `potrf`).
+    pub chol: Array2<f64>,
+    ln_norm: f64,
+}
+
+impl MvnPrior {
+    /// Sample mean and covariance (divisor n − 1) of `draws` (one row per draw).
+    ///
+    /// # Errors
+    /// Fewer draws than dimensions plus two, or a covariance that is not positive
+    /// definite (a parameter that did not vary).
+    pub fn fit(draws: &[Vec<f64>]) -> Result<Self, String> {
+        let d = draws.first().map_or(0, Vec::len);
+        let n = draws.len();
+        if d == 0 || n < d + 2 {
+            return Err(format!(
+                "{n} draws are too few for a {d}-dimensional normal"
+            ));
+        }
+        let x = Array2::from_shape_fn((n, d), |(i, j)| draws[i][j]);
+        let mean = x.mean_axis(Axis(0)).expect("n > 0");
+        let c = &x - &mean;
+        let cov = c.t().dot(&c) / (n as f64 - 1.0);
+        let chol = cov.cholesky(UPLO::Lower).map_err(|_| {
+            "the earlier draws do not vary in every direction (covariance not positive definite)"
+                .to_string()
+        })?;
+        let ln_det: f64 = 2.0 * chol.diag().iter().map(|v| v.ln()).sum::<f64>();
+        let ln_norm = -0.5 * ln_det - 0.5 * d as f64 * (2.0 * std::f64::consts::PI).ln();
+        Ok(Self {
+            mean,
+            chol,
+            ln_norm,
+        })
+    }
+
+    /// The covariance L Lᵀ.
+    pub fn covariance(&self) -> Array2<f64> {
+        self.chol.dot(&self.chol.t())
+    }
+
+    /// ln N(z; μ, Σ).
+    pub fn ln_density(&self, z: &[f64]) -> f64 {
+        let r = Array1::from_iter(z.iter().zip(&self.mean).map(|(z, m)| z - m));
+        match self.chol.solve_triangular(UPLO::Lower, Diag::NonUnit, &r) {
+            Ok(w) => self.ln_norm - 0.5 * w.dot(&w),
+            Err(_) => f64::NEG_INFINITY,
         }
     }
 }

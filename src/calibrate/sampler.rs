@@ -19,7 +19,9 @@
 
 use super::posterior::LogPosterior;
 use super::prior::ln_prior;
+use super::summary::{ESS_WARN, RHAT_WARN};
 use crate::progress::Observer;
+use crate::study::spec::SamplerChoice;
 use crate::study::Prior;
 use ndarray::{Array1, Array2};
 use ndarray_linalg::{Cholesky, UPLO};
@@ -32,10 +34,32 @@ use std::sync::atomic::{AtomicBool, Ordering};
 /// Settings of the sampler.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct SamplerParams {
+    /// Chains of the adaptive Metropolis sampler.
     pub chains: usize,
     pub warmup: usize,
+    /// Kept draws per chain (per walker for the ensemble).
     pub draws: usize,
     pub seed: u64,
+    pub kind: SamplerChoice,
+    /// Walkers of the ensemble sampler (`None`: the default for the dimension).
+    pub walkers: Option<usize>,
+    /// `Some(max kept draws per chain)`: extend sampling until converged.
+    pub until_converged: Option<usize>,
+}
+
+impl SamplerParams {
+    /// The classic settings: adaptive Metropolis, a fixed number of draws.
+    pub fn metropolis(chains: usize, warmup: usize, draws: usize, seed: u64) -> Self {
+        Self {
+            chains,
+            warmup,
+            draws,
+            seed,
+            kind: SamplerChoice::AdaptiveMetropolis,
+            walkers: None,
+            until_converged: None,
+        }
+    }
 }
 
 /// Why a chain stopped.
@@ -80,7 +104,7 @@ const CORRELATION_SHRINK: f64 = 0.01;
 
 /// Draw a starting point: the parameters from their prior (truncated to the range), then
 /// any estimated noise variance from its conditional posterior at those parameters.
-fn initial_point<R: Rng + ?Sized>(post: &LogPosterior<'_>, rng: &mut R) -> Vec<f64> {
+pub(crate) fn initial_point<R: Rng + ?Sized>(post: &LogPosterior<'_>, rng: &mut R) -> Vec<f64> {
     let mut x = initial_theta(post, rng);
     if post.n_noise() > 0 {
         let noise = post.initial_noise(&x, rng);
@@ -131,126 +155,186 @@ fn covariance(rows: &[Vec<f64>], d: usize) -> Array2<f64> {
     c
 }
 
-fn run_chain(
-    post: &LogPosterior<'_>,
-    params: &SamplerParams,
-    index: usize,
-    stop: &AtomicBool,
-    observer: &dyn Observer,
-) -> Chain {
-    let d = post.dim();
-    let mut rng = crate::rng::stream(params.seed, index as u64);
-    let mut z = post.to_unconstrained(&initial_point(post, &mut rng));
-    let mut lp = post.ln_density(&z);
-    let mut chol = Array2::<f64>::eye(d) * 0.1;
-    let mut ln_scale = (2.38 / (d as f64).sqrt()).ln();
-    let mut window: Vec<Vec<f64>> = Vec::new();
-    let mut window_len = FIRST_WINDOW;
-    let mut window_start = 0usize;
-    let mut window_accepted = 0usize;
-    let mut next_window_end = FIRST_WINDOW;
-    let n_par = post.n_parameters();
-    let mut theta = Vec::with_capacity(params.draws);
-    let mut noise_var = Vec::with_capacity(params.draws);
-    let mut ln_post = Vec::with_capacity(params.draws);
-    let mut accepted = 0usize;
-    let mut termination = Termination::MaxDraws;
-    let total = params.warmup + params.draws;
-    let mut eps = vec![0.0; d];
-    for t in 0..total {
-        if stop.load(Ordering::Relaxed) {
-            termination = Termination::Interrupted;
-            break;
-        }
-        for e in eps.iter_mut() {
-            *e = rng.sample(StandardNormal);
-        }
-        let scale = ln_scale.exp();
-        let proposal: Vec<f64> = (0..d)
-            .map(|a| z[a] + scale * (0..=a).map(|b| chol[[a, b]] * eps[b]).sum::<f64>())
-            .collect();
-        let lp_new = post.ln_density(&proposal);
-        let ln_ratio = lp_new - lp;
-        let accept_prob = if ln_ratio.is_nan() {
-            0.0
-        } else {
-            ln_ratio.min(0.0).exp()
-        };
-        let u: f64 = rng.gen();
-        let accept = u < accept_prob;
-        if accept {
-            z = proposal;
-            lp = lp_new;
-        }
-        if t < params.warmup {
-            // Robbins–Monro on the log scale; the step size restarts with each window so
-            // a badly scaled start is corrected quickly.
-            let gamma = 1.0 / ((t + 1 - window_start) as f64).powf(0.6);
-            ln_scale += gamma * (accept_prob - TARGET_ACCEPT);
-            if accept {
-                window_accepted += 1;
-            }
-            window.push(z.clone());
-            if t + 1 == next_window_end && t + 1 < params.warmup {
-                // Covariance of the latter half of the window (the early part may still
-                // be travelling from the starting point), if the chain moved enough to
-                // estimate it.
-                let half = &window[window.len() / 2..];
-                if window_accepted > 4 * d + 4 {
-                    let mut c = covariance(half, d);
-                    // Before the last window, shrink the correlations a little: a window
-                    // spent travelling from the start (e.g. a mean and a noise variance
-                    // falling together) gives a nearly singular estimate, and proposals
-                    // along that one line would never find the other directions. The
-                    // last estimate, made while the chain mixes, is used as it is.
-                    let last = t + 1 + 2 * window_len >= params.warmup;
-                    let keep = if last { 1.0 } else { 1.0 - CORRELATION_SHRINK };
-                    for a in 0..d {
-                        for b in 0..d {
-                            if a != b {
-                                c[[a, b]] *= keep;
-                            }
-                        }
-                        c[[a, a]] += COV_REGULARISER;
-                    }
-                    if let Ok(l) = c.cholesky(UPLO::Lower) {
-                        chol = l;
-                        ln_scale = (2.38 / (d as f64).sqrt()).ln();
-                    }
-                }
-                window.clear();
-                window_accepted = 0;
-                window_start = t + 1;
-                window_len *= 2;
-                next_window_end = t + 1 + window_len;
-            }
-        } else {
-            if accept {
-                accepted += 1;
-            }
-            let mut x = post.to_constrained(&z);
-            ln_post.push(lp - post.ln_jacobian(&z));
-            noise_var.push(x.split_off(n_par));
-            theta.push(x);
-        }
-        if (t + 1) % 100 == 0 {
-            observer.advance(100, "");
+/// One adaptive-Metropolis chain that can be extended: its random stream, position,
+/// tuned proposal and kept draws.
+struct AmChain {
+    rng: rand_chacha::ChaCha20Rng,
+    z: Vec<f64>,
+    lp: f64,
+    chol: Array2<f64>,
+    ln_scale: f64,
+    window: Vec<Vec<f64>>,
+    window_len: usize,
+    window_start: usize,
+    window_accepted: usize,
+    next_window_end: usize,
+    /// Iterations done (warm-up included).
+    t: usize,
+    accepted: usize,
+    chain: Chain,
+}
+
+impl AmChain {
+    fn new(post: &LogPosterior<'_>, seed: u64, index: usize) -> Self {
+        let d = post.dim();
+        let mut rng = crate::rng::stream(seed, index as u64);
+        let z = post.to_unconstrained(&initial_point(post, &mut rng));
+        let lp = post.ln_density(&z);
+        Self {
+            rng,
+            z,
+            lp,
+            chol: Array2::<f64>::eye(d) * 0.1,
+            ln_scale: (2.38 / (d as f64).sqrt()).ln(),
+            window: Vec::new(),
+            window_len: FIRST_WINDOW,
+            window_start: 0,
+            window_accepted: 0,
+            next_window_end: FIRST_WINDOW,
+            t: 0,
+            accepted: 0,
+            chain: Chain {
+                index,
+                theta: Vec::new(),
+                noise_var: Vec::new(),
+                ln_posterior: Vec::new(),
+                acceptance_rate: 0.0,
+                step_scale: 0.0,
+                termination: Termination::MaxDraws,
+            },
         }
     }
-    let kept = theta.len().max(1);
-    Chain {
-        index,
-        theta,
-        noise_var,
-        ln_posterior: ln_post,
-        acceptance_rate: accepted as f64 / kept as f64,
-        step_scale: ln_scale.exp(),
-        termination,
+
+    /// Run until `until` iterations (warm-up included) are done, or a stop request.
+    fn advance(
+        &mut self,
+        post: &LogPosterior<'_>,
+        warmup: usize,
+        until: usize,
+        stop: &AtomicBool,
+        observer: &dyn Observer,
+    ) {
+        let d = post.dim();
+        let n_par = post.n_parameters();
+        let mut eps = vec![0.0; d];
+        while self.t < until {
+            let t = self.t;
+            if stop.load(Ordering::Relaxed) {
+                self.chain.termination = Termination::Interrupted;
+                break;
+            }
+            for e in eps.iter_mut() {
+                *e = self.rng.sample(StandardNormal);
+            }
+            let scale = self.ln_scale.exp();
+            let chol = &self.chol;
+            let z = &self.z;
+            let proposal: Vec<f64> = (0..d)
+                .map(|a| z[a] + scale * (0..=a).map(|b| chol[[a, b]] * eps[b]).sum::<f64>())
+                .collect();
+            let lp_new = post.ln_density(&proposal);
+            let ln_ratio = lp_new - self.lp;
+            let accept_prob = if ln_ratio.is_nan() {
+                0.0
+            } else {
+                ln_ratio.min(0.0).exp()
+            };
+            let u: f64 = self.rng.gen();
+            let accept = u < accept_prob;
+            if accept {
+                self.z = proposal;
+                self.lp = lp_new;
+            }
+            if t < warmup {
+                self.tune(t, warmup, accept, accept_prob, d);
+            } else {
+                if accept {
+                    self.accepted += 1;
+                }
+                let mut x = post.to_constrained(&self.z);
+                self.chain
+                    .ln_posterior
+                    .push(self.lp - post.ln_jacobian(&self.z));
+                self.chain.noise_var.push(x.split_off(n_par));
+                self.chain.theta.push(x);
+            }
+            self.t += 1;
+            if self.t % 100 == 0 {
+                observer.advance(100, "");
+            }
+        }
+        let kept = self.chain.theta.len().max(1);
+        self.chain.acceptance_rate = self.accepted as f64 / kept as f64;
+        self.chain.step_scale = self.ln_scale.exp();
+    }
+
+    /// Warm-up: Robbins–Monro on the scale, covariance at the end of each window.
+    fn tune(&mut self, t: usize, warmup: usize, accept: bool, accept_prob: f64, d: usize) {
+        // The step size restarts with each window so a badly scaled start is corrected
+        // quickly.
+        let gamma = 1.0 / ((t + 1 - self.window_start) as f64).powf(0.6);
+        self.ln_scale += gamma * (accept_prob - TARGET_ACCEPT);
+        if accept {
+            self.window_accepted += 1;
+        }
+        self.window.push(self.z.clone());
+        if t + 1 == self.next_window_end && t + 1 < warmup {
+            // Covariance of the latter half of the window (the early part may still be
+            // travelling from the starting point), if the chain moved enough to
+            // estimate it.
+            let half = &self.window[self.window.len() / 2..];
+            if self.window_accepted > 4 * d + 4 {
+                let mut c = covariance(half, d);
+                // Before the last window, shrink the correlations a little: a window spent
+                // travelling from the start (e.g. a mean and a noise variance falling
+                // together) gives a nearly singular estimate, and proposals along that one
+                // line would never find the other directions. The last estimate, made
+                // while the chain mixes, is used as it is.
+                let last = t + 1 + 2 * self.window_len >= warmup;
+                let keep = if last { 1.0 } else { 1.0 - CORRELATION_SHRINK };
+                for a in 0..d {
+                    for b in 0..d {
+                        if a != b {
+                            c[[a, b]] *= keep;
+                        }
+                    }
+                    c[[a, a]] += COV_REGULARISER;
+                }
+                if let Ok(l) = c.cholesky(UPLO::Lower) {
+                    self.chol = l;
+                    self.ln_scale = (2.38 / (d as f64).sqrt()).ln();
+                }
+            }
+            self.window.clear();
+            self.window_accepted = 0;
+            self.window_start = t + 1;
+            self.window_len *= 2;
+            self.next_window_end = t + 1 + self.window_len;
+        }
     }
 }
 
-/// Run `params.chains` chains in parallel. Chain i uses random stream i of `params.seed`,
-/// so the draws are the same whatever the number of threads.
+/// Whether every parameter meets the convergence targets: R-hat ≤ [`RHAT_WARN`] and
+/// bulk and tail ESS ≥ [`ESS_WARN`] (the thresholds of the warnings).
+pub fn converged(chains: &[Chain]) -> bool {
+    let Some(first) = chains.first() else {
+        return false;
+    };
+    let d = first.theta.first().map_or(0, Vec::len);
+    (0..d).all(|j| {
+        let per: Vec<Vec<f64>> = chains
+            .iter()
+            .map(|c| c.theta.iter().map(|r| r[j]).collect())
+            .collect();
+        let dg = super::diagnostics::Diagnostics::of(&per);
+        dg.rhat <= RHAT_WARN && dg.ess_bulk >= ESS_WARN && dg.ess_tail >= ESS_WARN
+    })
+}
+
+/// Run the sampler chosen in `params`, chains (or walkers) in parallel. Chain i uses
+/// random stream i of `params.seed`, so the draws are the same whatever the number of
+/// threads. With `until_converged`, every chain is extended by `draws` at a time (from
+/// where it stopped, with its frozen proposal) until [`converged`] or the maximum.
 pub fn sample(
     post: &LogPosterior<'_>,
     params: &SamplerParams,
@@ -258,14 +342,61 @@ pub fn sample(
     observer: &dyn Observer,
 ) -> Vec<Chain> {
     crate::init_blas();
-    observer.start(
-        "MCMC",
-        (params.chains * (params.warmup + params.draws)) as u64,
-    );
-    let chains = (0..params.chains)
+    match params.kind {
+        SamplerChoice::AdaptiveMetropolis => sample_am(post, params, stop, observer),
+        SamplerChoice::Ensemble => super::ensemble::sample(post, params, stop, observer),
+    }
+}
+
+/// How many kept draws per chain the next round of sampling should reach, or `None`
+/// when sampling is over.
+pub(crate) fn next_target(params: &SamplerParams, have: usize, chains: &[Chain]) -> Option<usize> {
+    let max = params.until_converged?;
+    if have >= max
+        || chains
+            .iter()
+            .any(|c| c.termination == Termination::Interrupted)
+    {
+        return None;
+    }
+    if converged(chains) {
+        return None;
+    }
+    Some((have + params.draws).min(max))
+}
+
+fn sample_am(
+    post: &LogPosterior<'_>,
+    params: &SamplerParams,
+    stop: &AtomicBool,
+    observer: &dyn Observer,
+) -> Vec<Chain> {
+    let mut total = params.warmup + params.draws;
+    observer.start("MCMC", (params.chains * total) as u64);
+    let mut states: Vec<AmChain> = (0..params.chains)
         .into_par_iter()
-        .map(|i| run_chain(post, params, i, stop, observer))
+        .map(|i| {
+            let mut c = AmChain::new(post, params.seed, i);
+            c.advance(post, params.warmup, total, stop, observer);
+            c
+        })
         .collect();
+    loop {
+        let chains: Vec<Chain> = states.iter().map(|s| s.chain.clone()).collect();
+        let Some(target) = next_target(params, total - params.warmup, &chains) else {
+            break;
+        };
+        let extra = target + params.warmup - total;
+        observer.note(&format!(
+            "not converged after {} draws per chain: {extra} more per chain",
+            total - params.warmup
+        ));
+        observer.start("MCMC more", (params.chains * extra) as u64);
+        total += extra;
+        states
+            .par_iter_mut()
+            .for_each(|c| c.advance(post, params.warmup, total, stop, observer));
+    }
     observer.finish();
-    chains
+    states.into_iter().map(|s| s.chain).collect()
 }

@@ -2,6 +2,7 @@
 
 use super::diagnostics::{quantile_sorted, Diagnostics};
 use super::sampler::{Chain, SamplerParams, Termination};
+use crate::study::spec::SamplerChoice;
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 
@@ -267,6 +268,12 @@ pub struct SettingsWire {
     pub draws: usize,
     pub seed: u64,
     pub likelihood: String,
+    /// With `until_converged`: the most kept draws per chain allowed.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub max_draws: Option<usize>,
+    /// The earlier `posterior.yaml` whose draws gave the prior (`prior_from`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub prior_from: Option<String>,
 }
 
 /// `posterior.yaml` body.
@@ -325,8 +332,16 @@ impl PosteriorBody {
             correlation: s.correlation.clone(),
             noise: s.noise.iter().cloned().collect(),
             settings: SettingsWire {
-                sampler: "random-walk Metropolis, proposal tuned in warm-up".into(),
-                chains: params.chains,
+                sampler: match params.kind {
+                    SamplerChoice::AdaptiveMetropolis => {
+                        "random-walk Metropolis, proposal tuned in warm-up"
+                    }
+                    SamplerChoice::Ensemble => {
+                        "affine-invariant ensemble (stretch move, a = 2); one chain per walker"
+                    }
+                }
+                .into(),
+                chains: chains.len(),
                 warmup: params.warmup,
                 draws: params.draws,
                 seed: params.seed,
@@ -336,6 +351,8 @@ impl PosteriorBody {
                     "Gaussian: measurement noise (known, or unknown variance with an inverse-gamma prior, sampled) plus surrogate predictive variance"
                 }
                 .into(),
+                max_draws: params.until_converged,
+                prior_from: None,
             },
             chains: chains
                 .iter()

@@ -319,6 +319,23 @@ pub struct CalibrationSpec {
     /// Default 1.
     #[serde(default = "default_seed")]
     pub seed: u64,
+    /// Default `adaptive_metropolis`.
+    #[serde(default)]
+    pub sampler: SamplerChoice,
+    /// Walkers of the ensemble sampler; default max(2·dim + 2, 8), made even.
+    #[serde(default)]
+    pub walkers: Option<usize>,
+    /// Keep sampling, `draws` more per chain at a time, until R-hat ≤ 1.01 and bulk and
+    /// tail ESS ≥ 400 for every parameter, or `max_draws` per chain. Default false.
+    #[serde(default)]
+    pub until_converged: bool,
+    /// Most kept draws per chain with `until_converged`. Default 4 × `draws`.
+    #[serde(default)]
+    pub max_draws: Option<usize>,
+    /// `posterior.yaml` of an earlier calibration whose draws become this one's prior
+    /// (a multivariate normal in the unconstrained space). Relative to the study file.
+    #[serde(default)]
+    pub prior_from: Option<String>,
 }
 
 impl Default for CalibrationSpec {
@@ -328,8 +345,26 @@ impl Default for CalibrationSpec {
             warmup: default_warmup(),
             draws: default_draws(),
             seed: default_seed(),
+            sampler: SamplerChoice::default(),
+            walkers: None,
+            until_converged: false,
+            max_draws: None,
+            prior_from: None,
         }
     }
+}
+
+/// The MCMC algorithm.
+#[derive(Debug, Clone, Copy, Default, Deserialize, PartialEq, Eq)]
+#[serde(rename_all = "snake_case")]
+pub enum SamplerChoice {
+    /// Random-walk Metropolis with a proposal covariance learnt during warm-up
+    /// (Haario, Saksman & Tamminen 2001), one chain per `chains`.
+    #[default]
+    AdaptiveMetropolis,
+    /// The affine-invariant ensemble sampler with the stretch move (Goodman & Weare
+    /// 2010); every walker is reported as a chain.
+    Ensemble,
 }
 
 fn default_chains() -> usize {

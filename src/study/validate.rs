@@ -115,6 +115,13 @@ pub struct CalibrationParams {
     pub warmup: usize,
     pub draws: usize,
     pub seed: u64,
+    pub sampler: SamplerChoice,
+    /// Ensemble walkers as written (the default depends on the dimension).
+    pub walkers: Option<usize>,
+    /// `Some(max kept draws per chain)` when sampling goes on until converged.
+    pub until_converged: Option<usize>,
+    /// The earlier `posterior.yaml` whose draws are the prior, resolved.
+    pub prior_from: Option<PathBuf>,
 }
 
 /// A checked study.
@@ -621,6 +628,57 @@ pub fn parse(
             format!("{} draws per chain are too few (at least 10)", cal.draws),
         );
     }
+    if let Some(w) = cal.walkers {
+        let dim = spec.parameters.len();
+        if w < 4 || w % 2 != 0 || w <= dim {
+            c.err(
+                "calibration.walkers",
+                format!("{w} walkers: the ensemble needs an even number, at least 4 and more than the {dim} parameters"),
+            );
+        }
+        if cal.sampler != SamplerChoice::Ensemble {
+            c.err(
+                "calibration.walkers",
+                "walkers belong to `sampler: ensemble`",
+            );
+        }
+    }
+    if let Some(m) = cal.max_draws {
+        if !cal.until_converged {
+            c.err(
+                "calibration.max_draws",
+                "max_draws belongs to `until_converged: true`",
+            );
+        } else if m < cal.draws {
+            c.err(
+                "calibration.max_draws",
+                format!("max_draws {m} is less than draws {}", cal.draws),
+            );
+        }
+    }
+    let prior_from = cal.prior_from.as_ref().and_then(|p| {
+        let path = dir.join(p);
+        if !path.is_file() {
+            c.err(
+                "calibration.prior_from",
+                format!("no such file: {}", path.display()),
+            );
+            return None;
+        }
+        let samples = path.with_file_name("posterior-samples.csv");
+        if !samples.is_file() {
+            c.err(
+                "calibration.prior_from",
+                format!(
+                    "{} has no posterior-samples.csv beside it ({} is missing)",
+                    path.display(),
+                    samples.display()
+                ),
+            );
+            return None;
+        }
+        Some(path)
+    });
 
     if !c.errors.is_empty() {
         // Dedupe identical messages (a placeholder error repeats per experiment).
@@ -667,6 +725,12 @@ pub fn parse(
             warmup: cal.warmup,
             draws: cal.draws,
             seed: cal.seed,
+            sampler: cal.sampler,
+            walkers: cal.walkers,
+            until_converged: cal
+                .until_converged
+                .then(|| cal.max_draws.unwrap_or(4 * cal.draws)),
+            prior_from,
         },
     })
 }
