@@ -14,7 +14,7 @@ mod sampler;
 mod summary;
 
 pub use diagnostics::{ess_bulk, ess_tail, rhat, Diagnostics};
-pub use likelihood::{Emulator, ExperimentLikelihood};
+pub use likelihood::{ln_normal_low_rank, Emulator, ExperimentLikelihood};
 pub use posterior::LogPosterior;
 pub use prior::{ln_prior, InverseGamma, Transform};
 pub use sampler::{sample, Chain, SamplerParams, Termination};

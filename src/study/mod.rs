@@ -20,6 +20,6 @@ pub use error::{StudyError, StudyErrors};
 pub use locate::LineIndex;
 pub use validate::{
     load, parse, CalibrationParams, DesignMethod, DesignParams, DesignSpace, Experiment,
-    FileTemplate, KernelChoice, MeanChoice, Noise, OutputFormat, OutputSpec, Parameter, Prior,
-    Simulator, Study, SurrogateParams,
+    FileTemplate, HyperpriorChoice, KernelChoice, MeanChoice, Noise, OutputFormat, OutputSpec,
+    Parameter, Prior, Simulator, Study, SurrogateParams,
 };
