@@ -202,6 +202,18 @@ fn read_stage_record<T: serde::de::DeserializeOwned>(
     read_record(&path)
 }
 
+/// Read `surrogate.yaml`. A record from before the principal-component basis lacks its
+/// keys; the error then says to refit.
+fn read_surrogate(c: &Campaign) -> Result<Record<SurrogateBody>> {
+    read_stage_record(c, SURROGATE_FILE, "fit").with_context(|| {
+        format!(
+            "cannot use {}; if it was written by an older assay, run `assay fit {}` again",
+            c.path(SURROGATE_FILE).display(),
+            c.study.file.display()
+        )
+    })
+}
+
 /// Read `design.yaml`.
 ///
 /// # Errors
@@ -391,7 +403,7 @@ pub fn calibrate_stage(
     stop: &AtomicBool,
     observer: &dyn Observer,
 ) -> Result<PosteriorSummary> {
-    let rec: Record<SurrogateBody> = read_stage_record(c, SURROGATE_FILE, "fit")?;
+    let rec = read_surrogate(c)?;
     let mut clock = c.clock();
     c.hash_study_inputs(&mut clock)?;
     clock.input_named(SURROGATE_FILE, &c.path(SURROGATE_FILE))?;
@@ -566,9 +578,7 @@ pub fn parse_points(text: &str, file: &Path, names: &[String]) -> Result<Vec<Vec
 /// Also returns how many points lie outside the parameter box (extrapolation).
 pub fn predict_csv(c: &Campaign, points: &[Vec<f64>]) -> Result<(Vec<u8>, usize)> {
     use rayon::prelude::*;
-    let fitted = read_stage_record::<SurrogateBody>(c, SURROGATE_FILE, "fit")?
-        .body
-        .to_fitted()?;
+    let fitted = read_surrogate(c)?.body.to_fitted()?;
     let names = c.study.parameter_names();
     let mut header = names.clone();
     for e in &fitted.experiments {
