@@ -12,7 +12,7 @@
 //! If the emulator is right, (n − q)/(m (n − q − 2)) · D_MD follows an F distribution
 //! with (m, n − q) degrees of freedom, so
 //!
-//!   E[D_MD] = m,  Var[D_MD] = 2m (m + n − q − 2)/(n − q − 4)  (n − q > 4).
+//!   E(D_MD) = m,  Var(D_MD) = 2m (m + n − q − 2)/(n − q − 4)  (n − q > 4).
 //!
 //! A D_MD far above the reference says the emulator's errors are larger or more
 //! correlated than it claims (too small a variance, or a wrong length-scale); far below,
@@ -43,9 +43,9 @@ pub struct MahalanobisReference {
     pub n_points: usize,
     /// Degrees of freedom n − q.
     pub dof: usize,
-    /// E[D_MD] = m.
+    /// E(D_MD) = m.
     pub mean: f64,
-    /// Var[D_MD]; absent when n − q ≤ 4 (infinite).
+    /// Var(D_MD); absent when n − q ≤ 4 (infinite).
     pub variance: Option<f64>,
     /// 2.5 % and 97.5 % quantiles of the reference.
     pub q025: f64,
