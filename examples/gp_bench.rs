@@ -42,6 +42,7 @@ fn main() {
         kernel: Kernel::Matern52,
         trend: Trend::Constant,
         bounds: HyperBounds::default(),
+        hyperprior: None,
         n_starts,
         max_iters: 200,
     };

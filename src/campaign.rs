@@ -202,6 +202,18 @@ fn read_stage_record<T: serde::de::DeserializeOwned>(
     read_record(&path)
 }
 
+/// Read `surrogate.yaml`. A record from before the principal-component basis lacks its
+/// keys; the error then says to refit.
+fn read_surrogate(c: &Campaign) -> Result<Record<SurrogateBody>> {
+    read_stage_record(c, SURROGATE_FILE, "fit").with_context(|| {
+        format!(
+            "cannot use {}; if it was written by an older assay, run `assay fit {}` again",
+            c.path(SURROGATE_FILE).display(),
+            c.study.file.display()
+        )
+    })
+}
+
 /// Read `design.yaml`.
 ///
 /// # Errors
@@ -387,6 +399,52 @@ pub fn fit_stage(c: &Campaign) -> Result<(FittedSurrogate, BTreeMap<String, usiz
     Ok((fitted, excluded))
 }
 
+/// √D_j above this share of the measurement noise sd draws a warning: the basis then
+/// adds at least 25 % to the variance the likelihood sees at that value (our choice).
+pub const DISCARDED_SD_WARN: f64 = 0.5;
+
+/// Warnings when a basis leaves out variance comparable to the measurement noise: the
+/// largest ratio √D_j / σ_j over the output values of each experiment with known noise
+/// (`noise.sd` or an sd column; the smallest sd of the value's replicates).
+pub fn basis_warnings(c: &Campaign, s: &FittedSurrogate) -> Vec<String> {
+    use crate::study::Noise;
+    let mut out = Vec::new();
+    for e in &c.study.experiments {
+        let Some(m) = s.experiments.iter().find(|m| m.experiment == e.name) else {
+            continue;
+        };
+        let targets = e.data.targets(c.study.simulator.output.y.len());
+        if targets.len() != m.basis.n_values() {
+            continue;
+        }
+        let mut worst: Option<(f64, usize, f64)> = None;
+        for (j, t) in targets.iter().enumerate() {
+            let sd = match &e.noise {
+                Noise::Sd(v) => Some(*v),
+                Noise::Column(_) => t.sds.iter().flatten().copied().reduce(f64::min),
+                Noise::Unknown { .. } => None,
+            };
+            let Some(sd) = sd.filter(|v| *v > 0.0) else {
+                continue;
+            };
+            let ratio = m.basis.discarded[j].sqrt() / sd;
+            if worst.is_none_or(|(r, _, _)| ratio > r) {
+                worst = Some((ratio, j, sd));
+            }
+        }
+        if let Some((ratio, j, sd)) = worst.filter(|(r, _, _)| *r > DISCARDED_SD_WARN) {
+            out.push(format!(
+                "{}: the principal components leave out variance comparable to the measurement noise (at {}: sd {:.3e} left out vs noise sd {sd}, ratio {ratio:.2} > {DISCARDED_SD_WARN}); this blurs the parameters those components depend on: raise `surrogate.variance_kept` (now {})",
+                e.name,
+                m.outputs[j].name,
+                m.basis.discarded[j].sqrt(),
+                m.basis.variance_kept
+            ));
+        }
+    }
+    out
+}
+
 /// Validation of each experiment's surrogate, for printing.
 pub fn validation_table(s: &FittedSurrogate) -> Vec<(String, usize, Validation)> {
     s.experiments
@@ -407,7 +465,7 @@ pub fn calibrate_stage(
     stop: &AtomicBool,
     observer: &dyn Observer,
 ) -> Result<PosteriorSummary> {
-    let rec: Record<SurrogateBody> = read_stage_record(c, SURROGATE_FILE, "fit")?;
+    let rec = read_surrogate(c)?;
     let mut clock = c.clock();
     c.hash_study_inputs(&mut clock)?;
     clock.input_named(SURROGATE_FILE, &c.path(SURROGATE_FILE))?;
@@ -603,9 +661,7 @@ pub fn parse_points(text: &str, file: &Path, names: &[String]) -> Result<Vec<Vec
 /// Also returns how many points lie outside the parameter box (extrapolation).
 pub fn predict_csv(c: &Campaign, points: &[Vec<f64>]) -> Result<(Vec<u8>, usize)> {
     use rayon::prelude::*;
-    let fitted = read_stage_record::<SurrogateBody>(c, SURROGATE_FILE, "fit")?
-        .body
-        .to_fitted()?;
+    let fitted = read_surrogate(c)?.body.to_fitted()?;
     let names = c.study.parameter_names();
     let mut header = names.clone();
     for e in &fitted.experiments {

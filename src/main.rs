@@ -346,39 +346,102 @@ fn print_posterior(c: &Campaign) -> Result<()> {
 }
 
 fn print_fit(
+    c: &Campaign,
     s: &assay::surrogate::FittedSurrogate,
     excluded: &std::collections::BTreeMap<String, usize>,
 ) {
     out!(
-        "surrogate ({} kernel, {} mean), leave-one-out validation:",
+        "surrogate ({} kernel, {} mean{}), leave-one-out validation:",
         s.kernel.name(),
-        s.trend.name()
+        s.trend.name(),
+        if s.hyperprior.is_some() {
+            ", log-normal length-scale prior (MAP)"
+        } else {
+            ""
+        }
     );
     out!(
-        "  {:<16} {:>6} {:>12} {:>8} {:>11}",
+        "  {:<16} {:>6} {:>12} {:>8} {:>11} {:>11} {:>10}",
         "experiment",
         "runs",
         "rmse",
         "q2",
-        "coverage95"
+        "coverage95",
+        "components",
+        "explained"
     );
-    for (e, n, v) in campaign::validation_table(s) {
+    for e in &s.experiments {
+        let v = &e.validation;
         out!(
-            "  {:<16} {:>6} {:>12} {:>8.4} {:>11.3}",
-            e,
-            n,
+            "  {:<16} {:>6} {:>12} {:>8.4} {:>11.3} {:>11} {:>9.4}%",
+            e.experiment,
+            e.point_ids.len(),
             sig(v.rmse, 3),
             v.q2,
-            v.coverage95
+            v.coverage95,
+            e.basis.n_components(),
+            100.0 * e.basis.explained_total()
         );
     }
     for (e, n) in excluded.iter().filter(|(_, n)| **n > 0) {
         out!("  {e}: {n} design points without a finished run were left out (see `assay status`)");
     }
+    let mut warnings = campaign::basis_warnings(c, s);
     for e in &s.experiments {
         if let Some(w) = e.validation.verdict() {
-            out!("  warning: {}: {w}", e.experiment);
+            warnings.push(format!("{}: {w}", e.experiment));
         }
+    }
+    if s.experiments.iter().any(|e| e.holdout.is_some()) {
+        out!("holdout validation (surrogate refitted without the held-out runs):");
+        out!(
+            "  {:<16} {:>9} {:>12} {:>8} {:>11}",
+            "experiment",
+            "held out",
+            "rmse",
+            "q2",
+            "coverage95"
+        );
+        for e in &s.experiments {
+            let Some(h) = &e.holdout else { continue };
+            out!(
+                "  {:<16} {:>9} {:>12} {:>8.4} {:>11.3}",
+                e.experiment,
+                format!("{}/{}", h.point_ids.len(), h.point_ids.len() + h.n_fit),
+                sig(h.validation.rmse, 3),
+                h.validation.q2,
+                h.validation.coverage95
+            );
+        }
+        out!(
+            "  Mahalanobis distance per component (Bastos & O'Hagan 2009; reference: mean, sd, 95 % range):"
+        );
+        for e in &s.experiments {
+            let Some(h) = &e.holdout else { continue };
+            for c in &h.mahalanobis {
+                let r = &c.reference;
+                out!(
+                    "  {:<16} {:<5} {:>10} vs {:>4}, sd {:>8}, [{}, {}]{}",
+                    e.experiment,
+                    c.component,
+                    sig(c.value, 4),
+                    r.mean,
+                    r.variance.map_or("inf".into(), |v| sig(v.sqrt(), 3)),
+                    sig(r.q025, 3),
+                    sig(r.q975, 3),
+                    if c.outside() { "  <- outside" } else { "" }
+                );
+            }
+            for w in h.verdicts() {
+                warnings.push(format!("{}: {w}", e.experiment));
+            }
+        }
+    }
+    for w in &warnings {
+        out!("  warning: {w}");
+    }
+    if warnings.is_empty() {
+        out!("  the surrogate looks adequate by these checks");
     }
 }
 
@@ -498,7 +561,7 @@ fn execute(cli: &Cli) -> Result<bool> {
         }
         Command::Fit(_) => {
             let (s, excluded) = campaign::fit_stage(&c)?;
-            print_fit(&s, &excluded);
+            print_fit(&c, &s, &excluded);
         }
         Command::Calibrate(_) => {
             interruptible(|| campaign::calibrate_stage(&c, stop, obs.as_ref()))?;
@@ -533,7 +596,7 @@ fn execute(cli: &Cli) -> Result<bool> {
                 &campaign::fit_inputs(&c)?,
             ) {
                 let (s, excluded) = campaign::fit_stage(&c)?;
-                print_fit(&s, &excluded);
+                print_fit(&c, &s, &excluded);
             } else {
                 out!("surrogate: up to date");
             }

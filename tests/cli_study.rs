@@ -366,6 +366,53 @@ fn noise_sd_must_be_positive() {
 }
 
 #[test]
+fn surrogate_variance_kept_and_holdout_must_be_shares() {
+    for (key, bad, msg) in [
+        (
+            "variance_kept",
+            "0.0",
+            "variance_kept 0 must be in (0, 1] (the share of a curve's variance kept by its principal components)",
+        ),
+        (
+            "variance_kept",
+            "1.5",
+            "variance_kept 1.5 must be in (0, 1] (the share of a curve's variance kept by its principal components)",
+        ),
+        (
+            "holdout",
+            "0.5",
+            "holdout 0.5 must be in [0, 0.5) (the share of design points held out for validation)",
+        ),
+        (
+            "holdout",
+            "-0.1",
+            "holdout -0.1 must be in [0, 0.5) (the share of design points held out for validation)",
+        ),
+    ] {
+        let env = Env::new();
+        let text = format!("{}surrogate:\n  {key}: {bad}\n", env.minimal_study("ok"));
+        let line = line_of(&text, &format!("{key}: {bad}"));
+        let e = one_error(&env, &text, line, &format!("surrogate.{key}"));
+        assert!(e.ends_with(msg), "{key} {bad}: {e}");
+    }
+}
+
+#[test]
+fn an_unknown_hyperprior_is_refused() {
+    let env = Env::new();
+    let text = format!(
+        "{}surrogate: {{hyperprior: gamma}}\n",
+        env.minimal_study("ok")
+    );
+    let line = line_of(&text, "hyperprior: gamma");
+    let e = one_error(&env, &text, line, "surrogate.hyperprior");
+    assert!(
+        e.ends_with("unknown variant `gamma`, expected `none` or `lognormal`"),
+        "{e}"
+    );
+}
+
+#[test]
 fn a_design_of_one_point_is_too_small() {
     let env = Env::new();
     let text = edit(&env.minimal_study("ok"), "points: 4", "points: 1");

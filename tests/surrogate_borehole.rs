@@ -56,6 +56,7 @@ fn borehole_is_reproduced_to_one_percent_of_its_spread() {
         kernel: Kernel::Matern52,
         trend: Trend::Linear,
         bounds: HyperBounds::default(),
+        hyperprior: None,
         n_starts: 4,
         max_iters: 200,
     };

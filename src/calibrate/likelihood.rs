@@ -1,16 +1,24 @@
 //! Gaussian likelihood of one experiment's field data, counting measurement noise and
-//! the surrogate's predictive variance.
+//! the surrogate's predictive covariance.
 //!
 //! Replicates of one output value enter through their sufficient statistics, so the
 //! cost does not grow with the number of replicates.
 //!
 //! # Formula
 //! For output value j with replicates y_r, sds σ_r (w_r = 1/σ_r², W = Σ w_r,
-//! ȳ = Σ w_r y_r / W, V = 1/W) and surrogate prediction N(μ_j(θ), s_j²(θ)), integrating
-//! the unknown simulator output η_j ~ N(μ_j, s_j²) out of ∏_r N(y_r; η_j, σ_r²):
-//! ln L_j = ln N(ȳ; μ_j, s_j² + V) + C_j,
-//! C_j = −(n−1)/2 ln 2π − Σ ln σ_r + ½ ln V − ½ Σ w_r (y_r − ȳ)²  (independent of θ).
-//! Surrogate errors of different output values are treated as independent here.
+//! ȳ_j = Σ w_r y_r / W, V_j = 1/W), and the surrogate's prediction of the simulator's
+//! output vector η ~ N(μ(θ), C(θ)) with C = B diag(v(θ)) Bᵀ + D (low rank plus diagonal:
+//! the principal-component basis B, the weights' predictive variances v and the
+//! discarded variance D), integrating η out of ∏_j ∏_r N(y_jr; η_j, σ_r²):
+//! ln L = ln N(ȳ; μ, B diag(v) Bᵀ + Λ) + Σ_j C_j,  Λ = D + diag(V),
+//! C_j = −(n_j−1)/2 ln 2π − Σ ln σ_r + ½ ln V_j − ½ Σ w_r (y_r − ȳ_j)²  (independent of θ).
+//!
+//! The normal density is evaluated with G = B diag(√v) and M = I_K + Gᵀ Λ⁻¹ G (K × K):
+//! rᵀ(Λ + GGᵀ)⁻¹r = rᵀΛ⁻¹r − cᵀ M⁻¹ c with c = Gᵀ Λ⁻¹ r (Woodbury identity), and
+//! ln |Λ + GGᵀ| = Σ_j ln Λ_j + ln |M| (matrix determinant lemma), so an evaluation
+//! costs O(p K²) plus one K × K Cholesky factorisation, never a p × p one. Writing the
+//! update as GGᵀ (not B diag(v) Bᵀ with diag(v)⁻¹ in M) keeps M's eigenvalues ≥ 1 and
+//! allows v = 0.
 //!
 //! With an unknown variance σ² shared by every replicate of the experiment, V = σ²/n_j
 //! and C_j depends on σ²:
@@ -20,7 +28,11 @@
 //! an evaluation costs the same as with known noise.
 //!
 //! # References
-//! Gelman et al. (2013), Bayesian Data Analysis, 3rd ed., §2.5 (normal mean with known
+//! Woodbury identity and matrix determinant lemma: Harville, D. A. (1997), Matrix
+//! Algebra From a Statistician's Perspective, Springer, §18.2 *(section from memory)*;
+//! Rasmussen & Williams (2006), Gaussian Processes for Machine Learning, MIT Press,
+//! §A.3, eqs. A.9–A.10. Higdon et al. (2008), JASA 103(482), 570–583 (the basis form of
+//! the likelihood). Gelman et al. (2013), Bayesian Data Analysis, 3rd ed., §2.5 (normal mean with known
 //! variance) and §3.2 (normal with unknown variance; the split of the sum of squares
 //! into n(ȳ − μ)² + S is eq. 3.3 there, quoted from memory); Kennedy, M. C. &
 //! O'Hagan, A. (2001), Bayesian calibration of computer models, JRSS B 63(3), 425–464
@@ -28,17 +40,98 @@
 
 use super::prior::InverseGamma;
 use crate::study::{Experiment, Noise, Target};
+use crate::surrogate::LowRankPrediction;
+use ndarray::{Array1, Array2, ArrayView2};
+use ndarray_linalg::{FactorizeC, SolveC, UPLO};
 
 /// Anything that predicts an experiment's output vector at parameter values θ.
 pub trait Emulator: Sync {
-    /// Mean and variance of each output value (the experiment's output order).
+    /// Mean and marginal variance of each output value (the experiment's output order).
     fn predict(&self, theta: &[f64]) -> (Vec<f64>, Vec<f64>);
+
+    /// Mean and low-rank-plus-diagonal covariance of the output vector. The default
+    /// treats the values as independent (no basis).
+    fn predict_low_rank(&self, theta: &[f64]) -> LowRankPrediction {
+        let (m, v) = self.predict(theta);
+        LowRankPrediction::diagonal(m, v)
+    }
 }
 
 impl Emulator for crate::surrogate::ExperimentModel {
     fn predict(&self, theta: &[f64]) -> (Vec<f64>, Vec<f64>) {
         crate::surrogate::ExperimentModel::predict(self, theta)
     }
+
+    fn predict_low_rank(&self, theta: &[f64]) -> LowRankPrediction {
+        crate::surrogate::ExperimentModel::predict_low_rank(self, theta)
+    }
+}
+
+/// ln N(r; 0, diag(λ) + B diag(v) Bᵀ) by the Woodbury identity and the matrix
+/// determinant lemma.
+///
+/// # Formula
+/// With G = B diag(√v), M = I + Gᵀ diag(λ)⁻¹ G and c = Gᵀ diag(λ)⁻¹ r:
+/// −½ (p ln 2π + Σ ln λ_j + ln |M| + Σ r_j²/λ_j − cᵀ M⁻¹ c).
+/// Returns −∞ when some λ_j ≤ 0 or is not finite.
+///
+/// # Panics
+/// If the shapes disagree (r, λ of length p; B p × K; v of length K).
+///
+/// # Example
+/// ```
+/// use assay::calibrate::ln_normal_low_rank;
+/// use ndarray::array;
+/// // p = 1, K = 1: N(1; 0, 1 + 2²·0.75 = 4).
+/// let l = ln_normal_low_rank(&[1.0], &[1.0], array![[2.0]].view(), &[0.75]);
+/// let direct = -0.5 * ((2.0 * std::f64::consts::PI).ln() + 4f64.ln() + 0.25);
+/// assert!((l - direct).abs() < 1e-14);
+/// ```
+pub fn ln_normal_low_rank(r: &[f64], lambda: &[f64], basis: ArrayView2<f64>, v: &[f64]) -> f64 {
+    let p = r.len();
+    let k = v.len();
+    assert_eq!(lambda.len(), p);
+    assert_eq!(basis.dim(), (p, k));
+    let mut ln_det = 0.0;
+    let mut quad = 0.0;
+    for (rj, lj) in r.iter().zip(lambda) {
+        if !(*lj > 0.0 && lj.is_finite()) {
+            return f64::NEG_INFINITY;
+        }
+        ln_det += lj.ln();
+        quad += rj * rj / lj;
+    }
+    if k > 0 {
+        let sv: Vec<f64> = v.iter().map(|x| x.max(0.0).sqrt()).collect();
+        let g = Array2::from_shape_fn((p, k), |(j, c)| basis[[j, c]] * sv[c]);
+        let mut m = Array2::<f64>::eye(k);
+        let mut c = Array1::<f64>::zeros(k);
+        for j in 0..p {
+            let il = 1.0 / lambda[j];
+            for a in 0..k {
+                let ga = g[[j, a]] * il;
+                c[a] += ga * r[j];
+                for b in 0..=a {
+                    m[[a, b]] += ga * g[[j, b]];
+                }
+            }
+        }
+        for a in 0..k {
+            for b in 0..a {
+                m[[b, a]] = m[[a, b]];
+            }
+        }
+        let Ok(f) = m.factorizec(UPLO::Lower) else {
+            return f64::NEG_INFINITY;
+        };
+        let Ok(sol) = f.solvec(&c) else {
+            return f64::NEG_INFINITY;
+        };
+        quad -= c.dot(&sol);
+        let l = &f.factor;
+        ln_det += 2.0 * (0..k).map(|i| l[[i, i]].ln()).sum::<f64>();
+    }
+    -0.5 * (p as f64 * LN_2PI + ln_det + quad)
 }
 
 /// Precomputed statistics of one output value's replicates.
@@ -235,9 +328,35 @@ impl ExperimentLikelihood {
         self.ln_likelihood_with_noise(mean, var, 1.0)
     }
 
-    /// ln L given the emulator's mean and variance of each output value and, when the
-    /// noise is unknown, its variance `noise_var` (ignored with known noise).
+    /// ln L given the emulator's mean and variance of each output value, treated as
+    /// independent, and, when the noise is unknown, its variance `noise_var` (ignored
+    /// with known noise).
     pub fn ln_likelihood_with_noise(&self, mean: &[f64], var: &[f64], noise_var: f64) -> f64 {
+        let p = mean.len();
+        self.ln_likelihood_parts(mean, Array2::zeros((p, 0)).view(), &[], var, noise_var)
+    }
+
+    /// ln L given the emulator's low-rank-plus-diagonal prediction of the output vector
+    /// and, when the noise is unknown, its variance `noise_var` (ignored with known
+    /// noise). See the module documentation for the formula.
+    pub fn ln_likelihood_low_rank(&self, pred: &LowRankPrediction, noise_var: f64) -> f64 {
+        self.ln_likelihood_parts(
+            &pred.mean,
+            pred.basis.view(),
+            &pred.weight_var,
+            &pred.diag,
+            noise_var,
+        )
+    }
+
+    fn ln_likelihood_parts(
+        &self,
+        mean: &[f64],
+        basis: ArrayView2<f64>,
+        weight_var: &[f64],
+        diag: &[f64],
+        noise_var: f64,
+    ) -> f64 {
         debug_assert_eq!(mean.len(), self.groups.len());
         let (scale, mut s) = match self.noise {
             NoiseModel::Known => (1.0, 0.0),
@@ -248,11 +367,15 @@ impl ExperimentLikelihood {
                 (noise_var, -0.5 * (dof * noise_var.ln() + ss / noise_var))
             }
         };
-        for ((g, m), v) in self.groups.iter().zip(mean).zip(var) {
-            let tot = v + scale * g.var_mean;
-            s += -0.5 * (LN_2PI + tot.ln() + (g.ybar - m).powi(2) / tot) + g.constant;
+        let p = self.groups.len();
+        let mut r = Vec::with_capacity(p);
+        let mut lambda = Vec::with_capacity(p);
+        for ((g, m), d) in self.groups.iter().zip(mean).zip(diag) {
+            r.push(g.ybar - m);
+            lambda.push(d + scale * g.var_mean);
+            s += g.constant;
         }
-        s
+        s + ln_normal_low_rank(&r, &lambda, basis, weight_var)
     }
 }
 

@@ -15,7 +15,7 @@ mod sampler;
 mod summary;
 
 pub use diagnostics::{ess_bulk, ess_tail, rhat, Diagnostics};
-pub use likelihood::{Emulator, ExperimentLikelihood};
+pub use likelihood::{ln_normal_low_rank, Emulator, ExperimentLikelihood};
 pub use posterior::LogPosterior;
 pub use prior::{ln_prior, InverseGamma, MvnPrior, Transform};
 pub use sampler::{converged, sample, Chain, SamplerParams, Termination};

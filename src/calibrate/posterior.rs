@@ -175,9 +175,9 @@ impl<'a> LogPosterior<'a> {
             return lp;
         }
         for ((em, lik), slot) in self.experiments.iter().zip(&self.noise_slot) {
-            let (m, v) = em.predict(theta);
+            let pred = em.predict_low_rank(theta);
             let s2 = slot.map_or(1.0, |k| noise_var[k]);
-            lp += lik.ln_likelihood_with_noise(&m, &v, s2);
+            lp += lik.ln_likelihood_low_rank(&pred, s2);
         }
         lp
     }

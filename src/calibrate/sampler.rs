@@ -102,15 +102,33 @@ const COV_REGULARISER: f64 = 1e-10;
 /// 0.97 the last window is unaffected and the kept draws lose no efficiency.
 const CORRELATION_SHRINK: f64 = 0.01;
 
-/// Draw a starting point: the parameters from their prior (truncated to the range), then
-/// any estimated noise variance from its conditional posterior at those parameters.
+/// Candidate starting points drawn per chain; the chain starts at the best of them.
+/// A surrogate's predictive variance grows towards the corners of the parameter box,
+/// and there the likelihood can have small local modes (the variance grows faster than
+/// the mean's misfit) far below the main one but separated from it by a deep valley; a
+/// chain started in one can stay there for the whole run. Starting at the best of a few
+/// prior draws avoids them (common practice: several over-dispersed candidates, the
+/// best kept).
+pub const N_START_CANDIDATES: usize = 16;
+
+/// Draw a starting point: [`N_START_CANDIDATES`] candidates, each the parameters from
+/// their prior (truncated to the range) and any estimated noise variance from its
+/// conditional posterior at those parameters; keep the one with the highest target
+/// density (the first on ties). Every candidate's density counts as an evaluation.
 pub(crate) fn initial_point<R: Rng + ?Sized>(post: &LogPosterior<'_>, rng: &mut R) -> Vec<f64> {
-    let mut x = initial_theta(post, rng);
-    if post.n_noise() > 0 {
-        let noise = post.initial_noise(&x, rng);
-        x.extend(noise);
+    let mut best: Option<(Vec<f64>, f64)> = None;
+    for _ in 0..N_START_CANDIDATES {
+        let mut x = initial_theta(post, rng);
+        if post.n_noise() > 0 {
+            let noise = post.initial_noise(&x, rng);
+            x.extend(noise);
+        }
+        let lp = post.ln_density(&post.to_unconstrained(&x));
+        if best.as_ref().is_none_or(|(_, b)| lp > *b) {
+            best = Some((x, lp));
+        }
     }
-    x
+    best.expect("at least one candidate").0
 }
 
 fn initial_theta<R: Rng + ?Sized>(post: &LogPosterior<'_>, rng: &mut R) -> Vec<f64> {

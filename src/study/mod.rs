@@ -21,6 +21,6 @@ pub use locate::LineIndex;
 pub use spec::{Backend, SlurmSpec};
 pub use validate::{
     load, parse, CalibrationParams, DesignMethod, DesignParams, DesignSpace, Experiment,
-    FileTemplate, KernelChoice, MeanChoice, Noise, OutputFormat, OutputSpec, Parameter, Prior,
-    Simulator, Study, SurrogateParams,
+    FileTemplate, HyperpriorChoice, KernelChoice, MeanChoice, Noise, OutputFormat, OutputSpec,
+    Parameter, Prior, Simulator, Study, SurrogateParams,
 };

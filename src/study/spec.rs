@@ -270,9 +270,25 @@ pub struct SurrogateSpec {
     /// Default `constant`.
     #[serde(default)]
     pub mean: MeanChoice,
-    /// Seed of the hyperparameter search starts. Default 1.
+    /// Seed of the hyperparameter search starts and of the holdout choice. Default 1.
     #[serde(default = "default_seed")]
     pub seed: u64,
+    /// Share of the standardised variance of a curve output kept by its principal
+    /// components, in (0, 1]. Default 0.999.
+    #[serde(default = "default_variance_kept")]
+    pub variance_kept: f64,
+    /// Share of the design points held out to validate the surrogate, in [0, 0.5).
+    /// Default 0 (no holdout).
+    #[serde(default)]
+    pub holdout: f64,
+    /// Prior on the length-scales: `none` (maximum likelihood, the default) or
+    /// `lognormal` (maximum a posteriori with weak log-normal priors).
+    #[serde(default)]
+    pub hyperprior: HyperpriorChoice,
+}
+
+fn default_variance_kept() -> f64 {
+    0.999
 }
 
 impl Default for SurrogateSpec {
@@ -281,8 +297,22 @@ impl Default for SurrogateSpec {
             kernel: KernelChoice::default(),
             mean: MeanChoice::default(),
             seed: default_seed(),
+            variance_kept: default_variance_kept(),
+            holdout: 0.0,
+            hyperprior: HyperpriorChoice::default(),
         }
     }
+}
+
+/// `surrogate.hyperprior`.
+#[derive(Debug, Clone, Copy, Default, Deserialize, PartialEq, Eq)]
+#[serde(rename_all = "lowercase")]
+pub enum HyperpriorChoice {
+    /// Maximum likelihood.
+    #[default]
+    None,
+    /// Weak log-normal priors on the length-scales (maximum a posteriori).
+    Lognormal,
 }
 
 #[derive(Debug, Clone, Copy, Default, Deserialize, PartialEq, Eq)]

@@ -10,7 +10,7 @@ use super::spec::*;
 use std::collections::{BTreeMap, BTreeSet};
 use std::path::{Component, Path, PathBuf};
 
-pub use super::spec::{DesignMethod, DesignSpace, KernelChoice, MeanChoice};
+pub use super::spec::{DesignMethod, DesignSpace, HyperpriorChoice, KernelChoice, MeanChoice};
 
 /// Placeholders assay provides itself; parameters and settings may not take these names.
 pub const RESERVED: [&str; 3] = ["run_dir", "run_id", "study_dir"];
@@ -106,6 +106,24 @@ pub struct SurrogateParams {
     pub kernel: KernelChoice,
     pub mean: MeanChoice,
     pub seed: u64,
+    /// Share of a curve's standardised variance kept by its principal components.
+    pub variance_kept: f64,
+    /// Share of the design points held out for validation (0: none).
+    pub holdout: f64,
+    pub hyperprior: HyperpriorChoice,
+}
+
+impl Default for SurrogateParams {
+    fn default() -> Self {
+        Self {
+            kernel: KernelChoice::default(),
+            mean: MeanChoice::default(),
+            seed: 1,
+            variance_kept: 0.999,
+            holdout: 0.0,
+            hyperprior: HyperpriorChoice::None,
+        }
+    }
 }
 
 /// Calibration settings after defaults.
@@ -618,6 +636,25 @@ pub fn parse(
         c.err("execution.jobs", "jobs must be at least 1");
     }
     check_slurm(&mut c, &spec.execution.slurm);
+    let sur = &spec.surrogate;
+    if !(sur.variance_kept > 0.0 && sur.variance_kept <= 1.0) {
+        c.err(
+            "surrogate.variance_kept",
+            format!(
+                "variance_kept {} must be in (0, 1] (the share of a curve's variance kept by its principal components)",
+                sur.variance_kept
+            ),
+        );
+    }
+    if !(sur.holdout >= 0.0 && sur.holdout < 0.5) {
+        c.err(
+            "surrogate.holdout",
+            format!(
+                "holdout {} must be in [0, 0.5) (the share of design points held out for validation)",
+                sur.holdout
+            ),
+        );
+    }
     let cal = &spec.calibration;
     if cal.chains == 0 {
         c.err("calibration.chains", "chains must be at least 1");
@@ -719,6 +756,9 @@ pub fn parse(
             kernel: spec.surrogate.kernel,
             mean: spec.surrogate.mean,
             seed: spec.surrogate.seed,
+            variance_kept: spec.surrogate.variance_kept,
+            holdout: spec.surrogate.holdout,
+            hyperprior: spec.surrogate.hyperprior,
         },
         calibration: CalibrationParams {
             chains: cal.chains,

@@ -14,10 +14,19 @@ pub enum SurrogateError {
         n: usize,
         min: usize,
     },
+    #[error("experiment `{experiment}` has {n} finished runs; holding out {n_out} (`surrogate.holdout`) leaves fewer than the {min} needed to fit. Lower `surrogate.holdout` or run more points")]
+    HoldoutTooLarge {
+        experiment: String,
+        n: usize,
+        n_out: usize,
+        min: usize,
+    },
     #[error("a hyperparameter is not a finite number (the search diverged)")]
     NonFiniteHyperparameters,
     #[error("the hyperparameter search used its budget of {max} factorisations")]
     BudgetExhausted { max: u64 },
+    #[error("the surrogate record of `{experiment}` is malformed: {what}; run `assay fit` again")]
+    MalformedRecord { experiment: String, what: String },
     #[error("unknown {what} `{name}` in the surrogate record")]
     UnknownName { what: &'static str, name: String },
     #[error("every start of the hyperparameter search failed for `{output}`: {reason}")]

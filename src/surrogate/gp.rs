@@ -308,6 +308,91 @@ impl Gp {
         (mean, var)
     }
 
+    /// Joint predictive mean and covariance of the latent function at the rows of `xs`.
+    ///
+    /// # Formula
+    /// m = H*β̂ + K*α; C = K** − K* K⁻¹ K*ᵀ + Rᵀ A⁻¹ R, R = H*ᵀ − Hᵀ K⁻¹ K*ᵀ
+    /// (R&W eqs. 2.24 and 2.42, for several test points at once).
+    pub fn predict_cov(&self, xs: ArrayView2<f64>) -> (Array1<f64>, Array2<f64>) {
+        let ks = covariance(self.kernel, &self.hyper, xs, self.x.view());
+        let kss = covariance(self.kernel, &self.hyper, xs, xs);
+        let v = self
+            .l
+            .solve_triangular(UPLO::Lower, Diag::NonUnit, &ks.t().to_owned())
+            .expect("triangular solve with a Cholesky factor of positive diagonal");
+        let m = xs.nrows();
+        let mut cov = kss - v.t().dot(&v);
+        let mut mean = ks.dot(&self.alpha);
+        if !self.beta.is_empty() {
+            let hs = Array2::from_shape_fn((m, self.beta.len()), |(i, j)| {
+                self.trend.basis_row(xs.row(i))[j]
+            });
+            mean += &hs.dot(&self.beta);
+            let r = hs.t().to_owned() - self.k_inv_h.t().dot(&ks.t());
+            cov += &r.t().dot(&self.a_inv.dot(&r));
+        }
+        // Symmetrise away round-off.
+        let c2 = (&cov + &cov.t()) * 0.5;
+        (mean, c2)
+    }
+
+    /// Nugget variance σ²η added to the diagonal of K (training outputs are taken to
+    /// carry it; the latent prediction does not).
+    pub fn nugget_var(&self) -> f64 {
+        (self.hyper.ln_signal_var + self.hyper.ln_nugget).exp()
+    }
+
+    /// Number of training points n.
+    pub fn n_train(&self) -> usize {
+        self.x.nrows()
+    }
+
+    /// Number of trend coefficients q.
+    pub fn n_trend(&self) -> usize {
+        self.beta.len()
+    }
+
+    /// Gradient of the predictive mean with respect to the input x (the unit box).
+    ///
+    /// # Formula
+    /// ∂m/∂x_d = ∂h(x)ᵀβ̂/∂x_d + Σ_i α_i ∂k(x, x_i)/∂x_d, with
+    /// ∂k(x, x_i)/∂x_d = −σ² g(r) (x_d − x_id)/ℓ_d², g(r) = −ρ′(r)/r
+    /// ([`Kernel::neg_dcorr_over_r`], finite at r = 0 for the three kernels), and
+    /// ∂h(x)ᵀβ̂/∂x_d = β̂_(d+1) for the linear trend, 0 otherwise (differentiating R&W
+    /// eq. 2.41's mean, the chain rule through r² = Σ_d (x_d − x_id)²/ℓ_d²).
+    ///
+    /// # Panics
+    /// If `x` has the wrong length.
+    pub fn mean_gradient(&self, x: ArrayView1<f64>) -> Array1<f64> {
+        let d = self.x.ncols();
+        assert_eq!(x.len(), d, "input of the wrong dimension");
+        let s2 = self.hyper.ln_signal_var.exp();
+        let inv_l2: Vec<f64> = self
+            .hyper
+            .ln_length_scales
+            .iter()
+            .map(|l| (-2.0 * l).exp())
+            .collect();
+        let mut grad = Array1::zeros(d);
+        if self.trend == Trend::Linear {
+            for dd in 0..d {
+                grad[dd] = self.beta[dd + 1];
+            }
+        }
+        for (i, xi) in self.x.rows().into_iter().enumerate() {
+            let mut r2 = 0.0;
+            for dd in 0..d {
+                r2 += (x[dd] - xi[dd]).powi(2) * inv_l2[dd];
+            }
+            let g = self.kernel.neg_dcorr_over_r(r2.sqrt());
+            let c = -s2 * g * self.alpha[i];
+            for dd in 0..d {
+                grad[dd] += c * (x[dd] - xi[dd]) * inv_l2[dd];
+            }
+        }
+        grad
+    }
+
     /// Leave-one-out predictive means and variances of the training outputs `y`.
     ///
     /// # Formula
