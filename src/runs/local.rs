@@ -2,7 +2,7 @@
 //! shell), `jobs` at a time, with a timeout and retries, and record every attempt.
 
 use super::parse::{match_stations, parse_output};
-use super::store::{run_dir, run_record_path, Attempt, Fingerprint, RunBody, RunState};
+use super::store::{run_dir, run_record_path, same_point, Attempt, Fingerprint, RunBody, RunState};
 use crate::design::{Design, DesignPoint};
 use crate::progress::Observer;
 use crate::record::{
@@ -129,11 +129,19 @@ pub fn run_all(
     let mut changed: Vec<String> = Vec::new();
     let mut n_changed = 0;
     let mut example = String::new();
+    let names = study.parameter_names();
+    let mut superseded = Vec::new();
     for p in &design.points {
         for e in &study.experiments {
             let path = run_record_path(campaign, &p.id, &e.name);
             let previous = if path.exists() {
                 let rec: Record<RunBody> = read_record(&path)?;
+                if !same_point(&names, &rec.body.parameters, &p.values) {
+                    // Made for an earlier design's point with this id: a new run.
+                    superseded.push((p.id.as_str(), e.name.as_str()));
+                    todo.push((p, e, None));
+                    continue;
+                }
                 if rec.body.state == RunState::Done {
                     let diff = match &rec.body.fingerprint {
                         Some(old) => old.changed(&fingerprints[e.name.as_str()]),
@@ -170,6 +178,9 @@ pub fn run_all(
             example,
         }
         .into());
+    }
+    for (point, experiment) in superseded {
+        supersede(campaign, point, experiment)?;
     }
     // What every run reads: the study's files and the design, hashed once.
     let mut inputs = BTreeMap::new();
@@ -259,6 +270,25 @@ pub fn run_all(
         .len()
         .saturating_sub(next.load(Ordering::SeqCst).min(todo.len()));
     Ok(summary)
+}
+
+/// Folder under the campaign where runs of replaced design points are kept.
+pub const SUPERSEDED_DIR: &str = "superseded";
+
+/// Move the folder of a run made for an earlier design (same point id, other values) to
+/// `superseded/<point>/<experiment>.<UTC time>`: finished simulator runs are never
+/// deleted.
+fn supersede(campaign: &Path, point: &str, experiment: &str) -> Result<()> {
+    let from = run_dir(campaign, point, experiment);
+    let stamp = Utc::now().format("%Y%m%dT%H%M%S%.3fZ");
+    let to = campaign
+        .join(SUPERSEDED_DIR)
+        .join(point)
+        .join(format!("{experiment}.{stamp}"));
+    std::fs::create_dir_all(to.parent().expect("has a parent"))
+        .with_context(|| format!("cannot create {}", to.display()))?;
+    std::fs::rename(&from, &to)
+        .with_context(|| format!("cannot move {} to {}", from.display(), to.display()))
 }
 
 fn now() -> String {

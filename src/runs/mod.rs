@@ -11,9 +11,11 @@ mod lock;
 pub mod parse;
 mod store;
 
-pub use local::{fingerprint, run_all, run_key, value_names, RunOptions, RunSummary, RunsError};
+pub use local::{
+    fingerprint, run_all, run_key, value_names, RunOptions, RunSummary, RunsError, SUPERSEDED_DIR,
+};
 pub use lock::{acquire as lock_campaign, CampaignLock, LockError};
 pub use store::{
-    load_runs, run_dir, run_record_path, status_counts, Attempt, ExperimentRuns, Fingerprint,
-    RunBody, RunSet, RunState, StateCounts,
+    load_runs, run_dir, run_record_path, same_point, status_counts, Attempt, ExperimentRuns,
+    Fingerprint, RunBody, RunSet, RunState, StateCounts,
 };

@@ -167,16 +167,41 @@ impl ExperimentModel {
     }
 }
 
-fn validate_output(gp: Option<&Gp>, col: &[f64], mean: f64, sd: f64) -> Validation {
+/// Leave-one-out means and sds of one output column, in the output's units (an
+/// output without a GP is predicted exactly: its own values, sd 0).
+fn loo_original(gp: Option<&Gp>, col: &[f64], mean: f64, sd: f64) -> (Vec<f64>, Vec<f64>) {
     match gp {
         Some(gp) => {
             let y = Array1::from_iter(col.iter().map(|v| (v - mean) / sd));
             let (m, v) = gp.leave_one_out(y.view());
-            let pred: Vec<f64> = m.iter().map(|m| mean + sd * m).collect();
-            let psd: Vec<f64> = v.iter().map(|v| sd * v.sqrt()).collect();
-            Validation::from_loo(col, &pred, &psd)
+            (
+                m.iter().map(|m| mean + sd * m).collect(),
+                v.iter().map(|v| sd * v.sqrt()).collect(),
+            )
         }
-        None => Validation::from_loo(col, col, &vec![0.0; col.len()]),
+        None => (col.to_vec(), vec![0.0; col.len()]),
+    }
+}
+
+fn validate_output(gp: Option<&Gp>, col: &[f64], mean: f64, sd: f64) -> Validation {
+    let (pred, psd) = loo_original(gp, col, mean, sd);
+    Validation::from_loo(col, &pred, &psd)
+}
+
+impl ExperimentModel {
+    /// Leave-one-out predictions of every output value at every training run, in the
+    /// outputs' units: per output, (observed, LOO mean, LOO sd), runs in `point_ids`
+    /// order. The same numbers the validation summaries are made from.
+    pub fn leave_one_out(&self) -> Vec<(Vec<f64>, Vec<f64>, Vec<f64>)> {
+        self.outputs
+            .iter()
+            .enumerate()
+            .map(|(k, o)| {
+                let col: Vec<f64> = self.outputs_raw.iter().map(|r| r[k]).collect();
+                let (m, s) = loo_original(o.gp.as_ref(), &col, o.y_mean, o.y_sd);
+                (col, m, s)
+            })
+            .collect()
     }
 }
 

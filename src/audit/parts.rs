@@ -1,0 +1,151 @@
+//! The parts of a study each stage depends on, hashed.
+//!
+//! A stage is stale when a part it depends on changed, not when any byte of the study
+//! file changed: a new `calibration.draws` leaves the design and the runs valid. Each
+//! part is hashed over a canonical JSON form of the *checked* study (numbers in
+//! shortest round-trip form), so comments, key order and layout do not count.
+//!
+//! What each stage depends on:
+//!
+//! | stage | parts |
+//! | --- | --- |
+//! | design | `parameters` (names, ranges; priors too when `design.space` is `prior`), `design` |
+//! | runs | none here: each run's `key` hashes its simulator definition and point |
+//! | surrogate | `parameters` (names, ranges: they scale the inputs), `surrogate` |
+//! | posterior | `parameters` (names, ranges, priors), `experiments` (names, noise, field data values), `calibration` |
+
+use crate::study::{DesignSpace, Noise, Prior, Study};
+use serde_json::{json, Value};
+use std::collections::BTreeMap;
+
+fn sha(v: &Value) -> String {
+    crate::record::sha256_hex(v.to_string().as_bytes())
+}
+
+fn prior_json(p: &Prior) -> Value {
+    match p {
+        Prior::Uniform => json!("uniform"),
+        Prior::Normal { mean, sd } => json!({"normal": {"mean": mean, "sd": sd}}),
+        Prior::LogNormal { mu, sigma } => json!({"lognormal": {"mu": mu, "sigma": sigma}}),
+    }
+}
+
+fn parameters_json(study: &Study, with_priors: bool) -> Value {
+    Value::Array(
+        study
+            .parameters
+            .iter()
+            .map(|p| {
+                let mut v = json!({"name": p.name, "range": [p.lo, p.hi]});
+                if with_priors {
+                    v["prior"] = prior_json(&p.prior);
+                }
+                v
+            })
+            .collect(),
+    )
+}
+
+/// Parts of the study `design.yaml` depends on.
+pub fn design_parts(study: &Study) -> BTreeMap<String, String> {
+    let d = &study.design;
+    let by_prior = d.space == DesignSpace::Prior;
+    BTreeMap::from([
+        ("parameters".into(), sha(&parameters_json(study, by_prior))),
+        (
+            "design".into(),
+            sha(&json!({
+                "method": format!("{:?}", d.method),
+                "points": d.points,
+                "seed": d.seed,
+                "space": format!("{:?}", d.space),
+            })),
+        ),
+    ])
+}
+
+/// Parts of the study `surrogate.yaml` depends on.
+pub fn surrogate_parts(study: &Study) -> BTreeMap<String, String> {
+    let s = &study.surrogate;
+    BTreeMap::from([
+        ("parameters".into(), sha(&parameters_json(study, false))),
+        (
+            "surrogate".into(),
+            sha(&json!({
+                "kernel": format!("{:?}", s.kernel),
+                "mean": format!("{:?}", s.mean),
+                "seed": s.seed,
+            })),
+        ),
+    ])
+}
+
+/// Parts of the study `posterior.yaml` depends on.
+pub fn posterior_parts(study: &Study) -> BTreeMap<String, String> {
+    let experiments: Vec<Value> = study
+        .experiments
+        .iter()
+        .map(|e| {
+            let noise = match &e.noise {
+                Noise::Sd(v) => json!({"sd": v}),
+                Noise::Column(c) => json!({"sd_column": c}),
+                Noise::Unknown { shape, scale } => {
+                    json!({"unknown": {"shape": shape, "scale": scale}})
+                }
+            };
+            let rows: Vec<Value> = e
+                .data
+                .rows
+                .iter()
+                .map(|r| json!([r.x, r.y, r.sd]))
+                .collect();
+            json!({"name": e.name, "noise": noise, "data": rows})
+        })
+        .collect();
+    let c = &study.calibration;
+    BTreeMap::from([
+        ("parameters".into(), sha(&parameters_json(study, true))),
+        ("experiments".into(), sha(&Value::Array(experiments))),
+        (
+            "calibration".into(),
+            sha(&json!({
+                "chains": c.chains,
+                "warmup": c.warmup,
+                "draws": c.draws,
+                "seed": c.seed,
+            })),
+        ),
+    ])
+}
+
+/// Parts whose hash differs between a record and the study now, by name; a part the
+/// record does not name counts as changed.
+pub fn changed_parts(
+    recorded: &BTreeMap<String, String>,
+    now: &BTreeMap<String, String>,
+) -> Vec<String> {
+    now.iter()
+        .filter(|(k, v)| recorded.get(*k) != Some(*v))
+        .map(|(k, _)| k.clone())
+        .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn changed_parts_names_what_differs_or_is_missing() {
+        let now = BTreeMap::from([
+            ("a".to_string(), "1".to_string()),
+            ("b".to_string(), "2".to_string()),
+            ("c".to_string(), "3".to_string()),
+        ]);
+        let rec = BTreeMap::from([
+            ("a".to_string(), "1".to_string()),
+            ("b".to_string(), "9".to_string()),
+        ]);
+        assert_eq!(changed_parts(&rec, &now), ["b", "c"]);
+        assert!(changed_parts(&now, &now).is_empty());
+    }
+}
