@@ -526,7 +526,14 @@ pub fn report_stage(c: &Campaign, out: &Path) -> Result<()> {
             let noise: Option<Vec<f64>> = samples
                 .column(&format!("noise_sd.{}", e.name))
                 .map(|j| rows.iter().map(|r| r[j]).collect());
-            match compute::predictive(&c.study, e, model, &draws, noise.as_deref()) {
+            match compute::predictive(
+                &c.study,
+                e,
+                model,
+                model.outputs.len(),
+                &draws,
+                noise.as_deref(),
+            ) {
                 Some(q) => predictive.extend(q),
                 None if !draws.is_empty() => notes.push(format!(
                     "{}: the surrogate's outputs do not match the field data (run `assay all` to bring the records up to date)",

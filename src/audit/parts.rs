@@ -134,6 +134,75 @@ pub fn changed_parts(
 mod tests {
     use super::*;
 
+    fn study(parameters: &str, rest: &str) -> Study {
+        let text = format!(
+            "name: t\nparameters:\n{parameters}simulator:\n  command: [sim]\n  output: {{file: o.csv, x: x, y: [y]}}\nexperiments:\n  - {{name: e, data: d.csv, noise: {{sd: 0.1}}}}\n{rest}"
+        );
+        let read = |_: &std::path::Path| Ok("x,y\n0,1.5\n1,2.0\n".to_string());
+        crate::study::parse(
+            &text,
+            std::path::Path::new("s.yaml"),
+            std::path::Path::new("."),
+            &read,
+        )
+        .expect("a valid study")
+    }
+
+    const BASE: &str = "  - {name: a, unit: mm, range: [0, 5]}\n";
+
+    #[test]
+    fn each_stage_sees_only_its_parts() {
+        let base = study(BASE, "");
+        let same = |f: fn(&Study) -> BTreeMap<String, String>, other: &Study| {
+            changed_parts(&f(&base), &f(other))
+        };
+        // A unit, a comment and the layout change nothing.
+        let cosmetic = study(
+            "  # the only parameter\n  - name: a\n    unit: cm\n    range: [0.0, 5.0]\n",
+            "",
+        );
+        for f in [design_parts, surrogate_parts, posterior_parts] {
+            assert!(same(f, &cosmetic).is_empty());
+        }
+        // A range: every stage.
+        let range = study("  - {name: a, unit: mm, range: [0, 6]}\n", "");
+        assert_eq!(same(design_parts, &range), ["parameters"]);
+        assert_eq!(same(surrogate_parts, &range), ["parameters"]);
+        assert_eq!(same(posterior_parts, &range), ["parameters"]);
+        // A prior: the posterior only, unless the design is spread by the prior.
+        let prior = study(
+            "  - {name: a, unit: mm, range: [0, 5], prior: {normal: {mean: 2, sd: 1}}}\n",
+            "",
+        );
+        assert!(same(design_parts, &prior).is_empty());
+        assert!(same(surrogate_parts, &prior).is_empty());
+        assert_eq!(same(posterior_parts, &prior), ["parameters"]);
+        let by_prior = |prior: &str| {
+            design_parts(&study(
+                &format!("  - {{name: a, range: [0, 5]{prior}}}\n"),
+                "design: {space: prior}\n",
+            ))
+        };
+        assert_eq!(
+            changed_parts(
+                &by_prior(""),
+                &by_prior(", prior: {normal: {mean: 2, sd: 1}}")
+            ),
+            ["parameters"]
+        );
+        // Stage settings: their own stage.
+        let cal = study(BASE, "calibration: {draws: 100}\n");
+        assert!(same(design_parts, &cal).is_empty());
+        assert!(same(surrogate_parts, &cal).is_empty());
+        assert_eq!(same(posterior_parts, &cal), ["calibration"]);
+        let sur = study(BASE, "surrogate: {kernel: matern32}\n");
+        assert_eq!(same(surrogate_parts, &sur), ["surrogate"]);
+        assert!(same(posterior_parts, &sur).is_empty());
+        let des = study(BASE, "design: {points: 12}\n");
+        assert_eq!(same(design_parts, &des), ["design"]);
+        assert!(same(surrogate_parts, &des).is_empty());
+    }
+
     #[test]
     fn changed_parts_names_what_differs_or_is_missing() {
         let now = BTreeMap::from([

@@ -1,5 +1,6 @@
 //! The numbers behind the report's plots, from typed records: pure functions.
 
+use crate::calibrate::Emulator;
 use crate::study::{Experiment, Noise, Study};
 use crate::surrogate::ExperimentModel;
 
@@ -119,11 +120,11 @@ pub fn loo_of(model: &ExperimentModel) -> Vec<LooOutput> {
 pub struct BandPoint {
     /// The station (curve x), or `None` for a scalar output.
     pub x: Option<f64>,
-    /// E[μ(θ)] over the posterior draws.
+    /// E(μ(θ)) over the posterior draws.
     pub mean: f64,
-    /// √(E[s²(θ)] + Var[μ(θ)]): surrogate and parameter uncertainty.
+    /// √(E(s²(θ)) + Var(μ(θ))): surrogate and parameter uncertainty.
     pub sd_model: f64,
-    /// √(sd_model² + E[σ²]): plus measurement noise (a new measurement's spread).
+    /// √(sd_model² + E(σ²)): plus measurement noise (a new measurement's spread).
     pub sd_total: f64,
     /// The field measurements (replicates) of this output value.
     pub observed: Vec<f64>,
@@ -142,22 +143,24 @@ pub struct PredictiveQuantity {
 ///
 /// # Formula
 /// With surrogate mean μ(θ) and variance s²(θ) at each draw θ, and noise variance σ²:
-/// mean = E[μ], sd_model² = E[s²] + Var[μ], sd_total² = sd_model² + E[σ²] (expectations
+/// mean = E(μ), sd_model² = E(s²) + Var(μ), sd_total² = sd_model² + E(σ²) (expectations
 /// over the draws; Var with divisor n). σ² is the study's known noise (per output value,
 /// the mean of its replicates' sd²) or, for unknown noise, the drawn σ² of each draw.
 ///
-/// `draws` are parameter vectors; `noise_sd` the draws' noise sds for unknown noise
-/// (same length as `draws`), else `None`. Returns `None` when the surrogate's outputs do
-/// not match the field data (a stale surrogate) or there are no draws.
+/// `model` is the experiment's surrogate with `n_outputs` output values; `draws` are
+/// parameter vectors; `noise_sd` the draws' noise sds for unknown noise (same length as
+/// `draws`), else `None`. Returns `None` when the surrogate's outputs do not match the
+/// field data (a stale surrogate) or there are no draws.
 pub fn predictive(
     study: &Study,
     e: &Experiment,
-    model: &ExperimentModel,
+    model: &dyn Emulator,
+    n_outputs: usize,
     draws: &[Vec<f64>],
     noise_sd: Option<&[f64]>,
 ) -> Option<Vec<PredictiveQuantity>> {
     let targets = e.data.targets(study.simulator.output.y.len());
-    if targets.len() != model.outputs.len() || draws.is_empty() {
+    if targets.len() != n_outputs || draws.is_empty() {
         return None;
     }
     let n = draws.len() as f64;
@@ -256,6 +259,60 @@ mod tests {
         assert!(Samples::parse_csv("a,b\n1,2\n").is_err());
         let e = Samples::parse_csv("chain,draw,E\n0,0,x\n").unwrap_err();
         assert!(e.contains("line 2"), "{e}");
+    }
+
+    /// μ(θ) = (θ, 2θ), s²(θ) = (0.01, 0.04): a surrogate whose moments are known.
+    struct Linear;
+    impl Emulator for Linear {
+        fn predict(&self, theta: &[f64]) -> (Vec<f64>, Vec<f64>) {
+            (vec![theta[0], 2.0 * theta[0]], vec![0.01, 0.04])
+        }
+    }
+
+    fn study(noise: &str) -> Study {
+        let text = format!(
+            "name: t\nparameters:\n  - {{name: a, range: [0, 5]}}\nsimulator:\n  command: [sim]\n  output: {{file: o.csv, x: x, y: [y]}}\nexperiments:\n  - {{name: e, data: d.csv, noise: {noise}}}\n"
+        );
+        let read = |_: &std::path::Path| Ok("x,y,s\n0,1.5,0.2\n1,2.0,0.4\n1,9.0,0.2\n".to_string());
+        crate::study::parse(
+            &text,
+            std::path::Path::new("s.yaml"),
+            std::path::Path::new("."),
+            &read,
+        )
+        .expect("a valid study")
+    }
+
+    #[test]
+    fn predictive_bands_follow_the_law_of_total_variance() {
+        // Draws θ = 1 and 3: E[μ] = (2, 4), Var[μ] = (1, 4) (divisor n), E[s²] = (0.01, 0.04).
+        let draws = vec![vec![1.0], vec![3.0]];
+        let s = study("{sd: 0.1}");
+        let q = predictive(&s, &s.experiments[0], &Linear, 2, &draws, None).unwrap();
+        assert_eq!(q.len(), 1);
+        let p = &q[0].points;
+        assert_eq!((p[0].x, p[1].x), (Some(0.0), Some(1.0)));
+        assert!((p[0].mean - 2.0).abs() < 1e-12 && (p[1].mean - 4.0).abs() < 1e-12);
+        assert!((p[0].sd_model - 1.01f64.sqrt()).abs() < 1e-12);
+        assert!((p[1].sd_model - 4.04f64.sqrt()).abs() < 1e-12);
+        assert!((p[0].sd_total - 1.02f64.sqrt()).abs() < 1e-12);
+        assert_eq!(p[1].observed, vec![2.0, 9.0]);
+        // Within 2·sd_total: 1.5 (|−0.5| ≤ 2.02) and 2.0 (|−2| ≤ 4.03); 9.0 is not.
+        assert!((band_coverage(&q).unwrap() - 2.0 / 3.0).abs() < 1e-12);
+
+        // Per-row sds: the mean of the replicates' sd² at each station.
+        let s = study("{sd_column: s}");
+        let q = predictive(&s, &s.experiments[0], &Linear, 2, &draws, None).unwrap();
+        let p = &q[0].points;
+        assert!((p[1].sd_total - (4.04f64 + (0.16 + 0.04) / 2.0).sqrt()).abs() < 1e-12);
+
+        // Unknown noise: the mean of the drawn σ².
+        let s = study("{unknown: {shape: 3, scale: 1}}");
+        let q = predictive(&s, &s.experiments[0], &Linear, 2, &draws, Some(&[0.1, 0.3])).unwrap();
+        assert!((q[0].points[0].sd_total - (1.01f64 + 0.05).sqrt()).abs() < 1e-12);
+
+        // A surrogate with other outputs than the data (stale) gives no bands.
+        assert!(predictive(&s, &s.experiments[0], &Linear, 3, &draws, None).is_none());
     }
 
     #[test]

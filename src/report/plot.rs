@@ -638,7 +638,7 @@ pub fn predictive_plot(q: &PredictiveQuantity, x_label: &str, y_label: &str) -> 
                     .legend(|(x, y)| Circle::new((x + 6, y), 3, color(5).filled()));
                 chart
                     .configure_series_labels()
-                    .position(SeriesLabelPosition::UpperLeft)
+                    .position(SeriesLabelPosition::LowerRight)
                     .label_font((FONT, 10))
                     .background_style(WHITE.mix(0.85))
                     .border_style(GREY)
