@@ -8,6 +8,7 @@ Examples:
   assay validate models/cantilever/study.yaml     check a study and print a summary
   assay all models/cantilever/study.yaml          design, run, fit and calibrate, reusing up-to-date stages
   assay run --jobs 8 study.yaml                   run pending and failed runs, 8 at a time
+  assay run --backend slurm --detach study.yaml   submit the runs to Slurm as job arrays and return
   assay verify models/cantilever/study.yaml       re-hash the records and their files, list stale stages
   assay report models/cantilever/study.yaml       write runs/cantilever/report.html
   assay schema > study.schema.json                JSON Schema of the study file, for editors
@@ -46,10 +47,10 @@ pub enum Command {
     Design(DesignArgs),
     /// Run every pending or failed run of the design.
     #[command(
-        after_help = "Examples:\n  assay run study.yaml\n  assay run --jobs 4 study.yaml\n\nFinished runs are never repeated; Ctrl-C stops cleanly and leaves interrupted runs pending."
+        after_help = "Examples:\n  assay run study.yaml\n  assay run --jobs 4 study.yaml\n  assay run --backend slurm study.yaml            submit as job arrays, wait, collect\n  assay run --backend slurm --detach study.yaml   submit and return; `assay status` follows them;\n                                                  a later `assay run` collects them\n\nFinished runs are never repeated. Local: Ctrl-C stops cleanly and leaves interrupted runs\npending. Slurm: Ctrl-C stops waiting and leaves the submitted jobs running (it says how to\ncancel them); the job scripts are in <campaign>/slurm/."
     )]
     Run(RunArgs),
-    /// Counts of runs by state, per experiment.
+    /// Counts of runs by state, per experiment (and what Slurm says of submitted runs).
     #[command(after_help = "Example:\n  assay status models/cantilever/study.yaml")]
     Status(StudyArg),
     /// Fit and validate the surrogate (surrogate.yaml).
@@ -132,6 +133,8 @@ pub struct DesignArgs {
 pub enum BackendArg {
     /// Child processes on this machine.
     Local,
+    /// Slurm job arrays (`sbatch --array`), see docs/cluster.md.
+    Slurm,
 }
 
 #[derive(Debug, Args)]
@@ -147,4 +150,7 @@ pub struct RunArgs {
     /// Run everything again, finished runs included (after changing the simulator on purpose).
     #[arg(long)]
     pub rerun: bool,
+    /// Slurm: submit the pending runs and return at once; a later `assay run` collects them.
+    #[arg(long)]
+    pub detach: bool,
 }

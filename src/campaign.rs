@@ -264,6 +264,8 @@ pub struct StatusReport {
     pub reasons: Vec<(String, usize)>,
     /// Latest change of any run record (UTC, RFC 3339).
     pub last_activity: Option<String>,
+    /// What Slurm says of submitted runs, when there are any.
+    pub slurm: Option<runs::slurm::Live>,
 }
 
 /// Reasons longer than this are cut for the status table.
@@ -293,11 +295,13 @@ pub fn status(c: &Campaign) -> Result<StatusReport> {
     let last_activity = last.map(|t| {
         chrono::DateTime::<chrono::Utc>::from(t).to_rfc3339_opts(chrono::SecondsFormat::Secs, true)
     });
+    let slurm = runs::slurm::live(&c.dir, &bodies);
     Ok(StatusReport {
         n_points: design.points.len(),
         counts,
         reasons,
         last_activity,
+        slurm,
     })
 }
 

@@ -225,21 +225,45 @@ fn print_status(c: &Campaign) -> Result<()> {
         c.dir.display()
     );
     out!(
-        "  {:<16} {:>8} {:>8} {:>8} {:>8}",
+        "  {:<16} {:>8} {:>8} {:>8} {:>8} {:>8}",
         "experiment",
         "pending",
+        "queued",
         "running",
         "done",
         "failed"
     );
     for (e, k) in &s.counts {
         out!(
-            "  {:<16} {:>8} {:>8} {:>8} {:>8}",
+            "  {:<16} {:>8} {:>8} {:>8} {:>8} {:>8}",
             e,
             k.pending,
+            k.queued,
             k.running,
             k.done,
             k.failed
+        );
+    }
+    if let Some(l) = &s.slurm {
+        out!(
+            "in Slurm (jobs {}): {} waiting, {} running, {} ended and not yet collected, {} gone without a result",
+            l.jobs.join(", "),
+            l.pending,
+            l.running,
+            l.ended,
+            l.gone
+        );
+        if !l.reasons.is_empty() {
+            let r: Vec<String> = l.reasons.iter().map(|(k, n)| format!("{k} ×{n}")).collect();
+            out!("  waiting because: {}", r.join(", "));
+        }
+        if let Some(e) = &l.error {
+            out!("  squeue could not be asked: {e}");
+        }
+        out!(
+            "  `assay run {}` collects them; `scancel {}` cancels them",
+            c.study.file.display(),
+            l.jobs.join(" ")
         );
     }
     if !s.reasons.is_empty() {
@@ -399,9 +423,9 @@ fn print_fit(
     }
 }
 
-fn report_runs(s: &assay::runs::RunSummary) {
+fn report_runs(s: &assay::runs::RunSummary, study: &Study) {
     out!(
-        "runs: {} done now, {} failed, {} already done{}",
+        "runs: {} done now, {} failed, {} already done{}{}",
         s.done,
         s.failed,
         s.skipped,
@@ -409,8 +433,20 @@ fn report_runs(s: &assay::runs::RunSummary) {
             format!(", {} interrupted (pending)", s.interrupted)
         } else {
             String::new()
+        },
+        if s.in_flight > 0 {
+            format!(", {} in Slurm (jobs {})", s.in_flight, s.jobs.join(", "))
+        } else {
+            String::new()
         }
     );
+    if s.in_flight > 0 {
+        out!(
+            "  the jobs keep running: `assay status {f}` follows them, `assay run {f}` collects them, `scancel {}` cancels them",
+            s.jobs.join(" "),
+            f = study.file.display()
+        );
+    }
 }
 
 /// Run the command; `Ok(true)` when some runs failed (exit code 3).
@@ -466,11 +502,16 @@ fn execute(cli: &Cli) -> Result<bool> {
             print_design_quality(&d);
         }
         Command::Run(a) => {
+            let options = plan::run_options(a, &c.study);
+            if a.detach && options.backend != assay::study::Backend::Slurm {
+                return Err(InputError(
+                    "--detach needs the Slurm backend (`--backend slurm` or execution.backend: slurm)".into(),
+                )
+                .into());
+            }
             let _lock = campaign::lock(&c)?;
-            let s = interruptible(|| {
-                campaign::run_stage(&c, plan::run_options(a, &c.study), stop, obs.as_ref())
-            })?;
-            report_runs(&s);
+            let s = interruptible(|| campaign::run_stage(&c, options, stop, obs.as_ref()))?;
+            report_runs(&s, &c.study);
             some_failed = s.failed > 0;
         }
         Command::Status(_) => print_status(&c)?,
@@ -532,6 +573,13 @@ fn execute(cli: &Cli) -> Result<bool> {
             out!("report: {}", path.display());
         }
         Command::All(a) => {
+            if a.detach {
+                return Err(InputError(
+                    "--detach belongs to `assay run`: `assay all` needs the runs finished to go on"
+                        .into(),
+                )
+                .into());
+            }
             let _lock = campaign::lock(&c)?;
             // One rule for what to redo: the checks of `assay verify`.
             let v = audit::verify(&c)?;
@@ -556,9 +604,9 @@ fn execute(cli: &Cli) -> Result<bool> {
             let s = interruptible(|| {
                 campaign::run_stage(&c, plan::run_options(a, &c.study), stop, obs.as_ref())
             })?;
-            report_runs(&s);
+            report_runs(&s, &c.study);
             some_failed = s.failed > 0;
-            if stop.load(Ordering::SeqCst) {
+            if stop.load(Ordering::SeqCst) || s.in_flight > 0 {
                 anyhow::bail!("interrupted; run the same command again to continue");
             }
             if audit::verify(&c)?.stage(Stage::Surrogate).needs_redo() {

@@ -1,15 +1,26 @@
 //! From parsed arguments and the study to what will be done: the one place where
 //! defaults from the command line, the study and the machine are combined.
 
-use crate::args::RunArgs;
+use crate::args::{BackendArg, RunArgs};
 use assay::runs::RunOptions;
-use assay::study::Study;
+use assay::study::{Backend, Study};
 
 /// Options of the run stage.
 pub fn run_options(args: &RunArgs, study: &Study) -> RunOptions {
     RunOptions {
         jobs: jobs(args, study),
         rerun: args.rerun,
+        backend: backend(args, study),
+        detach: args.detach,
+    }
+}
+
+/// Where runs execute: `--backend`, else `execution.backend`.
+pub fn backend(args: &RunArgs, study: &Study) -> Backend {
+    match args.backend {
+        Some(BackendArg::Local) => Backend::Local,
+        Some(BackendArg::Slurm) => Backend::Slurm,
+        None => study.backend,
     }
 }
 

@@ -137,7 +137,8 @@ fn run(env: &Env, study: &Path) -> (Option<i32>, String) {
     )
 }
 
-/// The counts line of `assay status` for the experiment: [pending, running, done, failed].
+/// The counts of `assay status` for the experiment, read by column header:
+/// [pending, running, done, failed] (the local backend never queues).
 fn status_counts(env: &Env, study: &Path) -> [usize; 4] {
     let out = env
         .assay(["status"])
@@ -150,17 +151,32 @@ fn status_counts(env: &Env, study: &Path) -> [usize; 4] {
         stdout.contains(&format!("{N_POINTS} design points")),
         "{stdout}"
     );
+    let header: Vec<&str> = stdout
+        .lines()
+        .find(|l| l.split_whitespace().next() == Some("experiment"))
+        .unwrap_or_else(|| panic!("no header line:\n{stdout}"))
+        .split_whitespace()
+        .collect();
     let line = stdout
         .lines()
         .find(|l| l.split_whitespace().next() == Some(EXPERIMENT))
         .unwrap_or_else(|| panic!("no line for `{EXPERIMENT}`:\n{stdout}"));
-    let n: Vec<usize> = line
-        .split_whitespace()
+    let counts: BTreeMap<&str, usize> = header
+        .iter()
         .skip(1)
-        .map(|w| w.parse().expect("a count"))
+        .copied()
+        .zip(
+            line.split_whitespace()
+                .skip(1)
+                .map(|w| w.parse().expect("a count")),
+        )
         .collect();
-    n.try_into()
-        .unwrap_or_else(|_| panic!("expected four counts in `{line}`"))
+    assert_eq!(counts.get("queued"), Some(&0), "{stdout}");
+    ["pending", "running", "done", "failed"].map(|k| {
+        *counts
+            .get(k)
+            .unwrap_or_else(|| panic!("no `{k}` column:\n{stdout}"))
+    })
 }
 
 /// Every run of a campaign that failed with one reason: check the common fields and

@@ -110,6 +110,10 @@ fn cases(text: &str) -> Vec<(&'static str, String, bool)> {
         ("kernel", format!("{text}surrogate: {{kernel: squared-exponential, mean: linear}}\n"), true),
         ("unknown kernel", format!("{text}surrogate: {{kernel: rbf}}\n"), false),
         ("missing simulator", text.replacen("simulator:", "simulator_:", 1), false),
+        ("slurm settings, prelude as a block", format!("{text}execution:\n  backend: slurm\n  slurm: {{partition: short, time: \"00:10:00\", cpus_per_task: 2, array_limit: 8, extra_args: [--exclusive], prelude: \"module load x\\nexport Y=1\"}}\n"), true),
+        ("slurm prelude as a list", format!("{text}execution: {{slurm: {{prelude: [module load x, export Y=1]}}}}\n"), true),
+        ("unknown slurm key", format!("{text}execution: {{slurm: {{nodes: 2}}}}\n"), false),
+        ("unknown backend", format!("{text}execution: {{backend: pbs}}\n"), false),
     ]
 }
 

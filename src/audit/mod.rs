@@ -273,6 +273,7 @@ pub fn check_runs(
             *counts
                 .entry(match b.state {
                     RunState::Pending => "pending",
+                    RunState::Queued => "queued",
                     RunState::Running => "running",
                     RunState::Done => "done",
                     RunState::Failed => "failed",
@@ -332,7 +333,7 @@ pub fn check_runs(
         ));
     }
     s.notes.push(
-        ["done", "failed", "running", "pending"]
+        ["done", "failed", "queued", "running", "pending"]
             .iter()
             .map(|k| format!("{} {k}", counts.get(k).copied().unwrap_or(0)))
             .collect::<Vec<_>>()

@@ -347,6 +347,7 @@ fn runs_section(h: &mut String, r: &ReportInput) {
             esc(&e.name),
             count(RunState::Done).to_string(),
             count(RunState::Failed).to_string(),
+            count(RunState::Queued).to_string(),
             count(RunState::Running).to_string(),
             pending.to_string(),
             sig(elapsed, 4),

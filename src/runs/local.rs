@@ -1,204 +1,67 @@
 //! The local executor: start each pending run as a child process (never through a
 //! shell), `jobs` at a time, with a timeout and retries, and record every attempt.
 
-use super::parse::{match_stations, parse_output};
-use super::store::{run_dir, run_record_path, same_point, Attempt, Fingerprint, RunBody, RunState};
-use crate::design::{Design, DesignPoint};
+use super::outcome::{exit_failure, read_output, settle, Ended, Outcome};
+use super::plan::{job_ids, Plan, RunsError, Todo};
+use super::prepare::{prepare, Prepared};
+use super::store::{run_record_path, Attempt, RunBody, RunState};
+use super::RunSummary;
 use crate::progress::Observer;
-use crate::record::{
-    read_record, sha256_file, write_record, write_record_unsynced, ProvenanceClock, Record,
-};
-use crate::study::{placeholder, Experiment, Study};
-use anyhow::{Context, Result};
+use crate::record::{write_record, write_record_unsynced, ProvenanceClock, Record};
+use crate::study::{Experiment, Study};
+use anyhow::Result;
 use chrono::{SecondsFormat, Utc};
 use std::collections::BTreeMap;
 use std::os::unix::process::CommandExt;
-use std::path::{Path, PathBuf};
+use std::path::Path;
 use std::process::{Command, Stdio};
 use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
 use std::sync::Mutex;
 use std::time::{Duration, Instant};
 
-/// What one `run` invocation did.
-#[derive(Debug, Clone, Default, PartialEq, Eq)]
-pub struct RunSummary {
-    /// Runs already done before this invocation (not repeated).
-    pub skipped: usize,
-    /// Runs that finished now.
-    pub done: usize,
-    /// Runs that failed now (after their retries).
-    pub failed: usize,
-    /// Runs stopped by an interruption (left pending, to run again later).
-    pub interrupted: usize,
-}
-
-/// Names of an experiment's output values: `y@x` for curves, `y` for scalars.
-pub fn value_names(study: &Study, e: &Experiment) -> Vec<String> {
-    let stations = e.data.stations();
-    let mut out = Vec::new();
-    for q in &study.simulator.output.y {
-        for s in &stations {
-            match s {
-                Some(x) => out.push(format!("{q}@{}", placeholder::format_number(*x))),
-                None => out.push(q.clone()),
-            }
-        }
-    }
-    out
-}
-
-/// Options of one `run` invocation.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub struct RunOptions {
-    /// Concurrent runs.
-    pub jobs: usize,
-    /// Run everything again, done runs included (after the simulator changed on purpose).
-    pub rerun: bool,
-}
-
-/// Failures of the run stage that are not a simulator's failure.
-#[derive(Debug, thiserror::Error)]
-#[non_exhaustive]
-pub enum RunsError {
-    #[error("the study's {} changed since {n_runs} runs were done (first: {example}); refusing to mix old and new runs. Undo the change, or run `assay run --rerun` to run everything again", .changed.join(", "))]
-    SimulatorChanged {
-        changed: Vec<String>,
-        n_runs: usize,
-        example: String,
-    },
-}
-
-fn sha_json(v: &serde_json::Value) -> String {
-    crate::record::sha256_hex(v.to_string().as_bytes())
-}
-
-/// The fingerprint of experiment `e`'s runs under the study's simulator section.
-pub fn fingerprint(study: &Study, e: &Experiment) -> Fingerprint {
-    let sim = &study.simulator;
-    let files: Vec<serde_json::Value> = sim
-        .files
-        .iter()
-        .map(|f| serde_json::json!({"to": f.to, "text": f.text}))
-        .collect();
-    Fingerprint {
-        command: sha_json(&serde_json::json!(sim.command)),
-        files: sha_json(&serde_json::json!(files)),
-        output: sha_json(&serde_json::json!({
-            "file": sim.output.file,
-            "format": format!("{:?}", sim.output.format),
-            "x": sim.output.x,
-            "y": sim.output.y,
-            "stations": e.data.stations().iter().map(|s| s.map(|v| v.to_bits())).collect::<Vec<_>>(),
-        })),
-        env: sha_json(&serde_json::json!(sim.env)),
-        settings: sha_json(&serde_json::json!(e.settings)),
-    }
-}
-
-/// A run's key: sha256 of its fingerprint and its parameter values (bit-exact).
-pub fn run_key(fp: &Fingerprint, values: &[f64]) -> String {
-    let bits: Vec<u64> = values.iter().map(|v| v.to_bits()).collect();
-    sha_json(&serde_json::json!({"fingerprint": fp, "parameters": bits}))
-}
-
-/// Run every pending or failed run of the design, `jobs` at a time.
+/// Run the plan's runs as child processes, `jobs` at a time.
 ///
 /// The caller holds the campaign lock ([`super::lock_campaign`]), so a record found in
-/// state `running` was left by a process that died: it is run again.
+/// state `running` was left by a process that died: it is recovered or run again.
 ///
 /// # Errors
-/// [`RunsError::SimulatorChanged`] when done runs were made with another simulator
-/// definition (unless `rerun`), and problems with the campaign folder itself; a failing
-/// simulator is recorded in its `run.yaml` and counted in [`RunSummary::failed`].
-pub fn run_all(
+/// [`RunsError::InSlurm`] while runs submitted to Slurm are not collected; problems with
+/// the campaign folder itself. A failing simulator is recorded in its `run.yaml` and
+/// counted in [`RunSummary::failed`].
+pub(crate) fn run_local(
     study: &Study,
-    design: &Design,
+    plan: Plan<'_>,
     campaign: &Path,
-    options: RunOptions,
+    jobs: usize,
     command_line: &[String],
     stop: &AtomicBool,
     observer: &dyn Observer,
 ) -> Result<RunSummary> {
-    let fingerprints: BTreeMap<&str, Fingerprint> = study
-        .experiments
-        .iter()
-        .map(|e| (e.name.as_str(), fingerprint(study, e)))
-        .collect();
-    let mut todo = Vec::new();
-    let mut summary = RunSummary::default();
-    let mut changed: Vec<String> = Vec::new();
-    let mut n_changed = 0;
-    let mut example = String::new();
-    let names = study.parameter_names();
-    let mut superseded = Vec::new();
-    for p in &design.points {
-        for e in &study.experiments {
-            let path = run_record_path(campaign, &p.id, &e.name);
-            let previous = if path.exists() {
-                let rec: Record<RunBody> = read_record(&path)?;
-                if !same_point(&names, &rec.body.parameters, &p.values) {
-                    // Made for an earlier design's point with this id: a new run.
-                    superseded.push((p.id.as_str(), e.name.as_str()));
-                    todo.push((p, e, None));
-                    continue;
-                }
-                if rec.body.state == RunState::Done {
-                    let diff = match &rec.body.fingerprint {
-                        Some(old) => old.changed(&fingerprints[e.name.as_str()]),
-                        None => vec![],
-                    };
-                    if !diff.is_empty() && !options.rerun {
-                        for d in diff {
-                            if !changed.iter().any(|c| c == d) {
-                                changed.push(d.to_string());
-                            }
-                        }
-                        n_changed += 1;
-                        if example.is_empty() {
-                            example = format!("{}/{}", p.id, e.name);
-                        }
-                        continue;
-                    }
-                    if !options.rerun {
-                        summary.skipped += 1;
-                        continue;
-                    }
-                }
-                Some(rec.body)
-            } else {
-                None
-            };
-            todo.push((p, e, previous));
-        }
-    }
-    if !changed.is_empty() {
-        return Err(RunsError::SimulatorChanged {
-            changed,
-            n_runs: n_changed,
-            example,
+    if !plan.in_flight.is_empty() {
+        return Err(RunsError::InSlurm {
+            n_runs: plan.in_flight.len(),
+            jobs: job_ids(&plan.in_flight),
         }
         .into());
     }
-    for (point, experiment) in superseded {
-        supersede(campaign, point, experiment)?;
-    }
-    // What every run reads: the study's files and the design, hashed once.
-    let mut inputs = BTreeMap::new();
-    for f in study.input_files() {
-        let h = sha256_file(&f).with_context(|| format!("cannot hash {}", f.display()))?;
-        inputs.insert(f.display().to_string(), h);
-    }
-    let design_path = campaign.join("design.yaml");
-    if design_path.exists() {
-        inputs.insert("design.yaml".to_string(), sha256_file(&design_path)?);
-    }
+    let Plan {
+        fingerprints,
+        todo,
+        skipped,
+        inputs,
+        ..
+    } = plan;
+    let mut summary = RunSummary {
+        skipped,
+        ..RunSummary::default()
+    };
     observer.start("runs", todo.len() as u64);
     let next = AtomicUsize::new(0);
     let n_done = AtomicUsize::new(0);
     let n_failed = AtomicUsize::new(0);
     let n_running = AtomicUsize::new(0);
     let results = Mutex::new(Vec::new());
-    let workers = options.jobs.max(1).min(todo.len().max(1));
+    let workers = jobs.max(1).min(todo.len().max(1));
     let counts = |n_done: &AtomicUsize, n_failed: &AtomicUsize, n_running: &AtomicUsize| {
         format!(
             "{} done · {} failed · {} running",
@@ -214,31 +77,30 @@ pub fn run_all(
                     break;
                 }
                 let i = next.fetch_add(1, Ordering::SeqCst);
-                let Some((p, e, prev)) = todo.get(i) else {
+                let Some(Todo {
+                    point: p,
+                    experiment: e,
+                    previous: prev,
+                }) = todo.get(i)
+                else {
                     break;
                 };
                 n_running.fetch_add(1, Ordering::SeqCst);
-                let fp = &fingerprints[e.name.as_str()];
-                let r = run_one(
+                let r = prepare(
                     study,
                     p,
                     e,
-                    fp,
+                    &fingerprints[e.name.as_str()],
                     prev.clone(),
                     campaign,
-                    command_line,
-                    &inputs,
-                    stop,
-                );
+                )
+                .and_then(|prep| run_one(study, e, prep, command_line, &inputs, stop));
                 n_running.fetch_sub(1, Ordering::SeqCst);
                 let label = format!("{}/{}", p.id, e.name);
                 match &r {
                     Ok(RunState::Done) => {
                         n_done.fetch_add(1, Ordering::SeqCst);
                         observer.advance(1, &counts(&n_done, &n_failed, &n_running));
-                    }
-                    Ok(RunState::Pending) | Ok(RunState::Running) => {
-                        observer.note(&format!("{label} interrupted; back to pending"))
                     }
                     Ok(RunState::Failed) => {
                         n_failed.fetch_add(1, Ordering::SeqCst);
@@ -248,6 +110,7 @@ pub fn run_all(
                         ));
                         observer.advance(1, &counts(&n_done, &n_failed, &n_running));
                     }
+                    Ok(_) => observer.note(&format!("{label} interrupted; back to pending")),
                     Err(err) => {
                         observer.note(&format!("{label}: {err:#}"));
                         observer.advance(1, &counts(&n_done, &n_failed, &n_running));
@@ -261,8 +124,8 @@ pub fn run_all(
     for r in results.into_inner().expect("results lock") {
         match r? {
             RunState::Done => summary.done += 1,
-            RunState::Pending | RunState::Running => summary.interrupted += 1,
             RunState::Failed => summary.failed += 1,
+            _ => summary.interrupted += 1,
         }
     }
     // Runs never started because of an interruption.
@@ -272,112 +135,28 @@ pub fn run_all(
     Ok(summary)
 }
 
-/// Folder under the campaign where runs of replaced design points are kept.
-pub const SUPERSEDED_DIR: &str = "superseded";
-
-/// Move the folder of a run made for an earlier design (same point id, other values) to
-/// `superseded/<point>/<experiment>.<UTC time>`: finished simulator runs are never
-/// deleted.
-fn supersede(campaign: &Path, point: &str, experiment: &str) -> Result<()> {
-    let from = run_dir(campaign, point, experiment);
-    let stamp = Utc::now().format("%Y%m%dT%H%M%S%.3fZ");
-    let to = campaign
-        .join(SUPERSEDED_DIR)
-        .join(point)
-        .join(format!("{experiment}.{stamp}"));
-    std::fs::create_dir_all(to.parent().expect("has a parent"))
-        .with_context(|| format!("cannot create {}", to.display()))?;
-    std::fs::rename(&from, &to)
-        .with_context(|| format!("cannot move {} to {}", from.display(), to.display()))
-}
-
 fn now() -> String {
     Utc::now().to_rfc3339_opts(SecondsFormat::Millis, true)
 }
 
-/// Resolve the program: a path with `/` is relative to the study folder.
-fn program(study: &Study, arg0: &str) -> PathBuf {
-    let p = Path::new(arg0);
-    if arg0.contains('/') && p.is_relative() {
-        let joined = study.dir.join(p);
-        std::fs::canonicalize(&joined).unwrap_or(joined)
-    } else {
-        p.to_path_buf()
-    }
-}
-
-#[allow(clippy::too_many_arguments)] // one run's whole context; called from one place
 fn run_one(
     study: &Study,
-    point: &DesignPoint,
     e: &Experiment,
-    fp: &Fingerprint,
-    previous: Option<RunBody>,
-    campaign: &Path,
+    prep: Prepared,
     command_line: &[String],
     inputs: &BTreeMap<String, String>,
     stop: &AtomicBool,
 ) -> Result<RunState> {
-    let dir = run_dir(campaign, &point.id, &e.name);
-    std::fs::create_dir_all(&dir).with_context(|| format!("cannot create {}", dir.display()))?;
-    let dir = std::fs::canonicalize(&dir)?;
-    let record_path = dir.join("run.yaml");
-
-    let mut values: BTreeMap<String, String> = e.settings.clone();
-    let mut parameters = BTreeMap::new();
-    for (n, v) in study.parameters.iter().zip(&point.values) {
-        values.insert(n.name.clone(), placeholder::format_number(*v));
-        parameters.insert(n.name.clone(), *v);
-    }
-    values.insert("run_dir".into(), dir.display().to_string());
-    values.insert("run_id".into(), format!("{}-{}", point.id, e.name));
-    let study_dir = std::fs::canonicalize(&study.dir).unwrap_or_else(|_| study.dir.clone());
-    values.insert("study_dir".into(), study_dir.display().to_string());
-
-    let mut argv = Vec::new();
-    for a in &study.simulator.command {
-        argv.push(placeholder::render(a, &values).map_err(|e| anyhow::anyhow!(e.message))?);
-    }
-    for f in &study.simulator.files {
-        let text = placeholder::render(&f.text, &values).map_err(|e| anyhow::anyhow!(e.message))?;
-        crate::record::write_atomic(&dir.join(&f.to), text.as_bytes())?;
-    }
-
-    let mut env = Vec::new();
-    for (k, v) in &study.simulator.env {
-        env.push((
-            k.clone(),
-            placeholder::render(v, &values).map_err(|e| anyhow::anyhow!(e.message))?,
-        ));
-    }
-
-    let mut body = previous.unwrap_or_else(|| RunBody {
-        point: point.id.clone(),
-        experiment: e.name.clone(),
-        state: RunState::Pending,
-        attempts: 0,
-        exit_code: None,
-        reason: None,
-        elapsed_s: None,
-        outputs_sha256: None,
-        parameters: parameters.clone(),
-        command: argv.clone(),
-        owner_pid: None,
-        owner_host: None,
-        owner_started_utc: None,
-        child_pid: None,
-        key: None,
-        fingerprint: None,
-        values: None,
-        value_names: value_names(study, e),
-        history: vec![],
-    });
-    body.parameters = parameters;
-    body.command = argv.clone();
-    body.value_names = value_names(study, e);
-    body.fingerprint = Some(fp.clone());
-    body.key = Some(run_key(fp, &point.values));
-
+    let Prepared {
+        dir,
+        record_path,
+        program,
+        argv,
+        env,
+        mut body,
+        ..
+    } = prep;
+    body.slurm = None;
     if body.state == RunState::Running {
         // Left `running` by an assay process that died (we hold the campaign lock, so no
         // live process owns it). Its simulator may still be running or may have finished.
@@ -399,10 +178,6 @@ fn run_one(
 
     let max_attempts = 1 + study.simulator.retries;
     for _ in 0..max_attempts {
-        let mut clock = ProvenanceClock::start(command_line.to_vec());
-        for (k, v) in inputs {
-            clock.input_hash(k, v);
-        }
         body.state = RunState::Running;
         body.attempts += 1;
         body.owner_pid = Some(std::process::id());
@@ -415,7 +190,7 @@ fn run_one(
             &Record::new("run", clock_snapshot(command_line), body.clone()),
         )?;
 
-        let started = now();
+        let started_utc = now();
         let t0 = Instant::now();
         let on_spawn = |pid: u32| -> Result<()> {
             let mut b = body.clone();
@@ -425,63 +200,23 @@ fn run_one(
                 &Record::new("run", clock_snapshot(command_line), b),
             )
         };
-        let (exit_code, outcome) = attempt(study, e, &argv, &env, &dir, stop, &on_spawn);
-        body.child_pid = None;
-        let elapsed = t0.elapsed().as_secs_f64();
-        body.exit_code = exit_code;
-        body.elapsed_s = Some(elapsed);
-        body.owner_pid = None;
-        body.owner_host = None;
-        body.owner_started_utc = None;
-        match outcome {
-            Outcome::Interrupted => {
-                body.state = RunState::Pending;
-                body.attempts -= 1;
-                body.reason = Some("interrupted by the user; will run again".into());
-                body.history.push(Attempt {
-                    started_utc: started,
-                    elapsed_s: elapsed,
-                    exit_code,
-                    reason: body.reason.clone(),
-                });
-                write_record(
-                    &record_path,
-                    &Record::new("run", clock.finish(), body.clone()),
-                )?;
-                return Ok(RunState::Pending);
-            }
-            Outcome::Done(vals, sha) => {
-                body.state = RunState::Done;
-                body.reason = None;
-                body.values = Some(vals);
-                body.outputs_sha256 = Some(sha.clone());
-                body.history.push(Attempt {
-                    started_utc: started,
-                    elapsed_s: elapsed,
-                    exit_code,
-                    reason: None,
-                });
-                clock.input_hash(&format!("output:{}", study.simulator.output.file), &sha);
-                write_record(
-                    &record_path,
-                    &Record::new("run", clock.finish(), body.clone()),
-                )?;
-                return Ok(RunState::Done);
-            }
-            Outcome::Failed(reason) => {
-                body.state = RunState::Failed;
-                body.reason = Some(reason.clone());
-                body.history.push(Attempt {
-                    started_utc: started,
-                    elapsed_s: elapsed,
-                    exit_code,
-                    reason: Some(reason),
-                });
-                write_record(
-                    &record_path,
-                    &Record::new("run", clock.finish(), body.clone()),
-                )?;
-            }
+        let (exit_code, outcome) = attempt(study, e, &program, &argv, &env, &dir, stop, &on_spawn);
+        let ended = Ended {
+            started_utc,
+            elapsed_s: t0.elapsed().as_secs_f64(),
+            exit_code,
+        };
+        let state = settle(
+            study,
+            &mut body,
+            outcome,
+            ended,
+            &record_path,
+            command_line,
+            inputs,
+        )?;
+        if state != RunState::Failed {
+            return Ok(state);
         }
     }
     Ok(RunState::Failed)
@@ -543,19 +278,7 @@ fn recover(
     body.owner_started_utc = None;
     body.child_pid = None;
     if written_after_start {
-        let sim = &study.simulator;
-        let parsed = std::fs::read_to_string(&out_path)
-            .map_err(|e| e.to_string())
-            .and_then(|t| {
-                parse_output(
-                    &t,
-                    sim.output.format,
-                    sim.output.x.as_deref(),
-                    &sim.output.y,
-                )
-            })
-            .and_then(|p| match_stations(&p, &e.data.stations()));
-        if let (Ok(values), Ok(sha)) = (parsed, sha256_file(&out_path)) {
+        if let Outcome::Done(values, sha) = read_output(study, e, dir) {
             body.state = RunState::Done;
             body.reason = None;
             body.exit_code = None;
@@ -624,21 +347,12 @@ fn watch(
     }
 }
 
-/// How one attempt ended.
-enum Outcome {
-    /// Output values matched to the stations, and the output file's sha256.
-    Done(Vec<f64>, String),
-    /// Why it failed.
-    Failed(String),
-    /// Stopped on request; the process group was killed.
-    Interrupted,
-}
-
 /// One attempt: start, wait with timeout (or interruption), parse.
 #[allow(clippy::too_many_arguments)] // one attempt's whole context; called from one place
 fn attempt(
     study: &Study,
     e: &Experiment,
+    prog: &Path,
     argv: &[String],
     env: &[(String, String)],
     dir: &Path,
@@ -667,8 +381,7 @@ fn attempt(
             )
         }
     };
-    let prog = program(study, &argv[0]);
-    let mut child = match Command::new(&prog)
+    let mut child = match Command::new(prog)
         .args(&argv[1..])
         .current_dir(dir)
         .envs(env.iter().map(|(k, v)| (k, v)))
@@ -732,16 +445,6 @@ fn attempt(
     }
     let code = status.code();
     if !status.success() {
-        let tail = std::fs::read_to_string(dir.join("stderr.txt")).unwrap_or_default();
-        let tail: String = tail
-            .lines()
-            .rev()
-            .take(3)
-            .collect::<Vec<_>>()
-            .into_iter()
-            .rev()
-            .collect::<Vec<_>>()
-            .join(" | ");
         let why = match code {
             Some(c) => format!("exit code {c}"),
             None => match std::os::unix::process::ExitStatusExt::signal(&status) {
@@ -749,55 +452,7 @@ fn attempt(
                 None => "ended without an exit code".to_string(),
             },
         };
-        return (
-            code,
-            Outcome::Failed(if tail.is_empty() {
-                why
-            } else {
-                format!("{why}; stderr: {tail}")
-            }),
-        );
+        return (code, Outcome::Failed(exit_failure(why, dir)));
     }
-    let text = match std::fs::read_to_string(&out_path) {
-        Ok(t) => t,
-        Err(err) => {
-            return (
-                code,
-                Outcome::Failed(format!(
-                    "output file `{}` not readable: {err}",
-                    sim.output.file
-                )),
-            )
-        }
-    };
-    let parsed = match parse_output(
-        &text,
-        sim.output.format,
-        sim.output.x.as_deref(),
-        &sim.output.y,
-    ) {
-        Ok(p) => p,
-        Err(m) => {
-            return (
-                code,
-                Outcome::Failed(format!("output file `{}`: {m}", sim.output.file)),
-            )
-        }
-    };
-    let values = match match_stations(&parsed, &e.data.stations()) {
-        Ok(v) => v,
-        Err(m) => {
-            return (
-                code,
-                Outcome::Failed(format!("output file `{}`: {m}", sim.output.file)),
-            )
-        }
-    };
-    match sha256_file(&out_path) {
-        Ok(h) => (code, Outcome::Done(values, h)),
-        Err(err) => (
-            code,
-            Outcome::Failed(format!("cannot hash the output: {err}")),
-        ),
-    }
+    (code, read_output(study, e, dir))
 }

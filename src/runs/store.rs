@@ -8,11 +8,13 @@ use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 
-/// Life of a run: pending → running → done | failed.
+/// Life of a run: pending → (queued →) running → done | failed. `queued` exists only
+/// with the Slurm backend: submitted, not yet seen running.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, PartialOrd, Ord)]
 #[serde(rename_all = "lowercase")]
 pub enum RunState {
     Pending,
+    Queued,
     Running,
     Done,
     Failed,
@@ -100,10 +102,27 @@ pub struct RunBody {
     pub key: Option<String>,
     #[serde(default)]
     pub fingerprint: Option<Fingerprint>,
+    /// The Slurm array task of the current or last attempt (Slurm backend only).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub slurm: Option<SlurmTask>,
     /// Output values matched to the field stations (names in `value_names`).
     pub values: Option<Vec<f64>>,
     pub value_names: Vec<String>,
     pub history: Vec<Attempt>,
+}
+
+/// Where a run went in Slurm.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct SlurmTask {
+    /// `<array job id>_<task index>`, as `squeue`, `scontrol` and `scancel` take it.
+    pub job: String,
+    /// The array job id.
+    pub array_job_id: String,
+    /// The task index within the array.
+    pub task: u32,
+    /// The job script, relative to the campaign folder.
+    pub script: String,
+    pub submitted_utc: String,
 }
 
 /// Folder of one run.
@@ -202,6 +221,7 @@ pub fn load_runs(
 #[derive(Debug, Clone, Default, PartialEq, Eq, Serialize)]
 pub struct StateCounts {
     pub pending: usize,
+    pub queued: usize,
     pub running: usize,
     pub done: usize,
     pub failed: usize,
@@ -220,6 +240,7 @@ pub fn status_counts(
         for r in &mine {
             match r.state {
                 RunState::Pending => c.pending += 1,
+                RunState::Queued => c.queued += 1,
                 RunState::Running => c.running += 1,
                 RunState::Done => c.done += 1,
                 RunState::Failed => c.failed += 1,

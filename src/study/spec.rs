@@ -218,13 +218,58 @@ pub struct ExecutionSpec {
     /// Concurrent runs; default: the number of CPUs.
     #[serde(default)]
     pub jobs: Option<usize>,
+    /// Settings of the Slurm backend (used when the backend is `slurm`).
+    #[serde(default)]
+    pub slurm: SlurmSpec,
 }
 
 #[derive(Debug, Clone, Copy, Default, Deserialize, PartialEq, Eq, JsonSchema)]
 #[serde(rename_all = "lowercase")]
 pub enum Backend {
+    /// Child processes on this machine.
     #[default]
     Local,
+    /// Slurm job arrays (`sbatch --array`), collected by polling.
+    Slurm,
+}
+
+/// `execution.slurm`: how runs are handed to Slurm. Every key is optional.
+#[derive(Debug, Clone, Default, Deserialize, PartialEq, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct SlurmSpec {
+    /// `--partition`; default: the cluster's default partition.
+    #[serde(default)]
+    pub partition: Option<String>,
+    /// `--time` per array task in Slurm's format (`MM`, `HH:MM:SS`, `D-HH`...);
+    /// default: `simulator.timeout_s` plus two minutes, rounded up to minutes.
+    #[serde(default)]
+    pub time: Option<String>,
+    /// `--cpus-per-task`; default: Slurm's (1).
+    #[serde(default)]
+    pub cpus_per_task: Option<u32>,
+    /// `--mem` per task (`4G`, `500M`); default: Slurm's.
+    #[serde(default)]
+    pub mem: Option<String>,
+    /// `--account`.
+    #[serde(default)]
+    pub account: Option<String>,
+    /// `--qos`.
+    #[serde(default)]
+    pub qos: Option<String>,
+    /// Most array tasks of one submission running at once (the `%` throttle).
+    #[serde(default)]
+    pub array_limit: Option<u32>,
+    /// More `sbatch` options, one per item (e.g. `--constraint=avx2`).
+    #[serde(default)]
+    pub extra_args: Vec<String>,
+    /// Shell lines run on the node before the simulator (module loads, environment):
+    /// a list of lines or one block of text.
+    #[serde(default, deserialize_with = "lines")]
+    #[schemars(schema_with = "lines_schema")]
+    pub prelude: Vec<String>,
+    /// Seconds between two looks at the queue. Default 5.
+    #[serde(default)]
+    pub poll_s: Option<f64>,
 }
 
 #[derive(Debug, Clone, Deserialize, JsonSchema)]
@@ -504,4 +549,29 @@ pub fn schema_json() -> String {
     let mut schema = schemars::schema_for!(StudySpec);
     schema.insert("title".into(), "assay study file".into());
     serde_json::to_string_pretty(&schema).expect("a schema serialises")
+}
+
+/// The schema of what [`lines`] reads.
+fn lines_schema(_: &mut SchemaGenerator) -> Schema {
+    json_schema!({
+        "description": "Shell lines run on the node before the simulator: a list of lines or one block of text.",
+        "oneOf": [
+            {"type": "string"},
+            {"type": "array", "items": {"type": "string"}},
+        ]
+    })
+}
+
+/// A list of lines, or one block of text split into lines.
+fn lines<'de, D: Deserializer<'de>>(d: D) -> Result<Vec<String>, D::Error> {
+    #[derive(Deserialize)]
+    #[serde(untagged)]
+    enum Lines {
+        Block(String),
+        List(Vec<String>),
+    }
+    Ok(match Lines::deserialize(d)? {
+        Lines::Block(s) => s.lines().map(str::to_string).collect(),
+        Lines::List(v) => v,
+    })
 }
