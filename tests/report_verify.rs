@@ -345,3 +345,56 @@ fn the_report_shows_failed_runs_before_any_surrogate() {
     assert!(text.contains("No surrogate yet"));
     assert_eq!(doc.select(&sel("svg")).count(), 1, "the design plot only");
 }
+
+/// Remove the `study_parts` block from a record's provenance, as an assay version
+/// before it wrote.
+fn strip_study_parts(path: &Path) {
+    let text = std::fs::read_to_string(path).unwrap();
+    let mut out = String::new();
+    let mut skipping = false;
+    for line in text.lines() {
+        if line == "  study_parts:" {
+            skipping = true;
+            continue;
+        }
+        if skipping && line.starts_with("    ") {
+            continue;
+        }
+        skipping = false;
+        out.push_str(line);
+        out.push('\n');
+    }
+    assert_ne!(out, text, "{} had study_parts", path.display());
+    std::fs::write(path, out).unwrap();
+}
+
+#[test]
+fn records_of_earlier_versions_keep_their_runs_and_refit_the_rest() {
+    let env = Env::new();
+    let study = cantilever(&env);
+    all_ok(&env, &study);
+    for f in ["design.yaml", "surrogate.yaml"] {
+        strip_study_parts(&campaign(&env).join(f));
+    }
+    let (code, out, _) = assay(&env, &["verify"], &study);
+    assert_eq!(code, Some(1), "{out}");
+    // An old design is judged by its settings: still fine, so its runs are kept.
+    assert_eq!(stage_state(&out, "design"), "ok", "{out}");
+    assert_eq!(stage_state(&out, "runs"), "ok", "{out}");
+    assert!(
+        out.contains("surrogate.yaml was made by an earlier assay that did not record the study parts it used"),
+        "{out}"
+    );
+    assert_eq!(stage_state(&out, "posterior"), "stale", "{out}");
+    let out = all_ok(&env, &study);
+    assert!(out.contains("design: 30 points kept"), "{out}");
+    assert!(
+        out.contains("0 done now, 0 failed, 60 already done"),
+        "{out}"
+    );
+    assert!(
+        !out.contains("up to date"),
+        "surrogate and posterior redone:\n{out}"
+    );
+    assert_eq!(assay(&env, &["verify"], &study).0, Some(0));
+}
