@@ -492,17 +492,30 @@ pub fn report_stage(c: &Campaign, out: &Path) -> Result<()> {
     let posterior = match read_if_exists::<PosteriorBody>(c, POSTERIOR_FILE)? {
         None => None,
         Some(rec) => {
+            // Without readable samples the report still shows the posterior table and
+            // says why the plots are missing (the audit section names the file too).
             let path = c.path(SAMPLES_FILE);
-            let text = std::fs::read_to_string(&path)
-                .with_context(|| format!("cannot read {}", path.display()))?;
-            let samples = compute::Samples::parse_csv(&text)
-                .map_err(|e| anyhow::anyhow!("{}:{e}", path.display()))?;
+            let samples = std::fs::read_to_string(&path)
+                .map_err(|e| format!("cannot read {SAMPLES_FILE}: {e}"))
+                .and_then(|text| {
+                    compute::Samples::parse_csv(&text).map_err(|e| format!("{SAMPLES_FILE}:{e}"))
+                });
             Some((rec, samples))
         }
     };
     let posterior_view = posterior.map(|(rec, samples)| {
         let mut predictive = Vec::new();
         let mut notes = Vec::new();
+        let (samples, samples_problem) = match samples {
+            Ok(s) => (s, None),
+            Err(e) => (
+                compute::Samples {
+                    columns: Vec::new(),
+                    chains: Vec::new(),
+                },
+                Some(e),
+            ),
+        };
         let rows = samples.thinned(report::PREDICTIVE_DRAWS);
         let cols: Vec<Option<usize>> = c
             .study
@@ -510,7 +523,9 @@ pub fn report_stage(c: &Campaign, out: &Path) -> Result<()> {
             .iter()
             .map(|p| samples.column(&p.name))
             .collect();
-        let draws: Vec<Vec<f64>> = if cols.iter().all(Option::is_some) {
+        let draws: Vec<Vec<f64>> = if samples_problem.is_some() {
+            Vec::new()
+        } else if cols.iter().all(Option::is_some) {
             rows.iter()
                 .map(|r| cols.iter().map(|j| r[j.expect("checked")]).collect())
                 .collect()
@@ -551,6 +566,7 @@ pub fn report_stage(c: &Campaign, out: &Path) -> Result<()> {
             provenance: rec.provenance,
             n_predictive_draws: draws.len(),
             samples,
+            samples_problem,
             predictive,
             predictive_notes: notes,
         }

@@ -398,3 +398,31 @@ fn records_of_earlier_versions_keep_their_runs_and_refit_the_rest() {
     );
     assert_eq!(assay(&env, &["verify"], &study).0, Some(0));
 }
+
+#[test]
+fn a_report_without_the_samples_says_so_and_keeps_the_rest() {
+    let env = Env::new();
+    let study = cantilever(&env);
+    all_ok(&env, &study);
+    std::fs::remove_file(campaign(&env).join("posterior-samples.csv")).unwrap();
+    let (code, out, err) = assay(&env, &["report"], &study);
+    assert_eq!(code, Some(0), "{out}\n{err}");
+    let text = std::fs::read_to_string(campaign(&env).join("report.html")).unwrap();
+    let doc = Html::parse_document(&text);
+    let body: String = doc.root_element().text().collect();
+    assert!(
+        body.contains("No traces, densities or pairwise plot: cannot read posterior-samples.csv"),
+        "the reason is shown"
+    );
+    assert!(
+        body.contains("missing posterior-samples.csv"),
+        "and the audit names it"
+    );
+    // The design and the two leave-one-out plots remain.
+    assert_eq!(doc.select(&sel("svg")).count(), 3);
+    assert_eq!(
+        doc.select(&sel("#posterior table")).count(),
+        3,
+        "posterior, correlation, chains"
+    );
+}

@@ -60,6 +60,8 @@ pub struct PosteriorView {
     pub body: PosteriorBody,
     pub provenance: Provenance,
     pub samples: Samples,
+    /// Why the samples could not be read, if they could not (no plots then).
+    pub samples_problem: Option<String>,
     /// Per experiment and quantity; empty with a note when they cannot be made.
     pub predictive: Vec<PredictiveQuantity>,
     /// Why predictive bands are missing for some experiment, if they are.
@@ -617,6 +619,14 @@ fn posterior_section(h: &mut String, r: &ReportInput) {
         &["chain", "draws", "acceptance", "step scale", "ended"],
         &rows,
     ));
+    if let Some(problem) = &pv.samples_problem {
+        let _ = writeln!(
+            h,
+            "<p class=\"warn\">No traces, densities or pairwise plot: {}.</p>\n</section>",
+            esc(problem)
+        );
+        return;
+    }
 
     // Traces and marginals: parameters, then estimated noise sds.
     let samples = &pv.samples;
@@ -694,6 +704,13 @@ fn predictive_section(h: &mut String, r: &ReportInput) {
         "<p>The surrogate evaluated at {} posterior draws: the mean prediction, ± 2 sd for the surrogate and parameter uncertainty (dark band), and ± 2 sd with the measurement noise added (light band), against the field measurements. Most measurements should lie in the light band; many outside it point to a model, data or noise problem.</p>",
         pv.n_predictive_draws
     );
+    if let Some(problem) = &pv.samples_problem {
+        let _ = writeln!(
+            h,
+            "<p class=\"warn\">No predictive bands: {}.</p>",
+            esc(problem)
+        );
+    }
     for n in &pv.predictive_notes {
         let _ = writeln!(h, "<p class=\"warn\">{}</p>", esc(n));
     }
