@@ -6,7 +6,7 @@ mod plan;
 
 use anyhow::{Context, Result};
 use args::{Cli, Command};
-use assay::audit::{self, Freshness, Stage, Verification};
+use assay::audit::{self, Depth, Freshness, Stage, Verification};
 use assay::calibrate::{Diagnostics, ParameterSummary, PosteriorBody};
 use assay::campaign::{self, Campaign, DesignOutcome, InputError};
 use assay::progress::Observer;
@@ -581,8 +581,9 @@ fn execute(cli: &Cli) -> Result<bool> {
                 .into());
             }
             let _lock = campaign::lock(&c)?;
-            // One rule for what to redo: the checks of `assay verify`.
-            let v = audit::verify(&c)?;
+            // One rule for what to redo: the checks of `assay verify` (without re-hashing
+            // the simulator outputs, which decide no stage's staleness).
+            let v = audit::verify_to(&c, Depth::Records)?;
             let design_check = v.stage(Stage::Design);
             let (d, verb) = match &design_check.freshness {
                 Freshness::Stale(why) if design_check.findings.is_empty() => {
@@ -609,13 +610,19 @@ fn execute(cli: &Cli) -> Result<bool> {
             if stop.load(Ordering::SeqCst) || s.in_flight > 0 {
                 anyhow::bail!("interrupted; run the same command again to continue");
             }
-            if audit::verify(&c)?.stage(Stage::Surrogate).needs_redo() {
+            if audit::verify_to(&c, Depth::Records)?
+                .stage(Stage::Surrogate)
+                .needs_redo()
+            {
                 let (s, excluded) = campaign::fit_stage(&c)?;
                 print_fit(&s, &excluded);
             } else {
                 out!("surrogate: up to date");
             }
-            if audit::verify(&c)?.stage(Stage::Posterior).needs_redo() {
+            if audit::verify_to(&c, Depth::Records)?
+                .stage(Stage::Posterior)
+                .needs_redo()
+            {
                 interruptible(|| campaign::calibrate_stage(&c, stop, obs.as_ref()))?;
                 if stop.load(Ordering::SeqCst) {
                     anyhow::bail!("interrupted; run the same command again to continue");

@@ -236,6 +236,7 @@ pub fn check_runs(
     c: &Campaign,
     design: Option<&Design>,
     design_stale: bool,
+    depth: Depth,
 ) -> anyhow::Result<(StageCheck, BTreeSet<String>)> {
     let mut s = StageCheck::new(Stage::Runs);
     let mut current_done = BTreeSet::new();
@@ -298,7 +299,11 @@ pub fn check_runs(
                 }
             }
             let out_rel = format!("{rel}/{}", c.study.simulator.output.file);
-            match (&b.outputs_sha256, hash_if_exists(&c.dir.join(&out_rel))?) {
+            let now = match depth {
+                Depth::Full => hash_if_exists(&c.dir.join(&out_rel))?,
+                Depth::Records => b.outputs_sha256.clone(),
+            };
+            match (&b.outputs_sha256, now) {
                 (Some(_), None) => s.find(
                     out_rel,
                     Problem::Missing,
@@ -498,14 +503,33 @@ pub fn check_posterior(c: &Campaign, surrogate_stale: bool) -> anyhow::Result<St
     Ok(s)
 }
 
+/// How much [`verify`] reads.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Depth {
+    /// Everything, simulator output files included (`assay verify`, the report).
+    Full,
+    /// The records and the samples, not the simulator output files: enough to decide
+    /// which stages are stale, since an edited output makes no stage stale (it is a
+    /// finding of its own). What `assay all` uses; outputs can be large.
+    Records,
+}
+
 /// Check the whole campaign, stage by stage. A stage is stale when it is itself, or when
 /// an earlier stage is (it will be redone, and this one after it).
 ///
 /// # Errors
 /// I/O other than missing files.
 pub fn verify(c: &Campaign) -> anyhow::Result<Verification> {
+    verify_to(c, Depth::Full)
+}
+
+/// [`verify`] to the given depth.
+///
+/// # Errors
+/// I/O other than missing files.
+pub fn verify_to(c: &Campaign, depth: Depth) -> anyhow::Result<Verification> {
     let (design, d) = check_design(c)?;
-    let (runs, done) = check_runs(c, d.as_ref(), design.is_stale())?;
+    let (runs, done) = check_runs(c, d.as_ref(), design.is_stale(), depth)?;
     let surrogate = check_surrogate(c, runs.is_stale(), &done)?;
     let posterior = check_posterior(c, surrogate.is_stale())?;
     Ok(Verification {
