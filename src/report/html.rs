@@ -33,7 +33,8 @@ pub fn sig(v: f64, digits: usize) -> String {
 }
 
 /// A table: header cells, then rows of already-escaped cell HTML. The first column is
-/// left-aligned text, the others right-aligned numbers unless a cell is marked `text`.
+/// left-aligned text, the others right-aligned numbers unless a cell's content is a
+/// `<span class="text">` or `<span class="mono">` (left-aligned).
 pub fn table(header: &[&str], rows: &[Vec<String>]) -> String {
     let mut h = String::from("<div class=\"table-wrap\"><table>\n<thead><tr>");
     for c in header {
@@ -68,6 +69,7 @@ table { border-collapse: collapse; font-size: .88rem; font-variant-numeric: tabu
 th, td { padding: .25rem .6rem; border-bottom: 1px solid var(--line); text-align: right; vertical-align: top; }
 th { background: #f4f4f4; font-weight: 600; }
 th:first-child, td:first-child, td.text { text-align: left; }
+td > .text, td > .mono { display: block; text-align: left; }
 figure { margin: 1rem 0 1.5rem; }
 figcaption { font-size: .85rem; color: var(--muted); margin-top: .3rem; }
 svg.plot { display: block; max-width: 100%; height: auto; }

@@ -86,25 +86,26 @@ pub struct ReportInput<'a> {
     pub verification: Option<Verification>,
 }
 
+/// A study setting's name as written in the study file (`lhs`, `range`, `linear`).
+fn lower(v: impl std::fmt::Debug) -> String {
+    format!("{v:?}").to_lowercase()
+}
+
 fn prior_text(p: &Prior) -> String {
     match p {
         Prior::Uniform => "uniform".into(),
-        Prior::Normal { mean, sd } => format!("normal(mean {}, sd {})", sig(*mean, 6), sig(*sd, 6)),
-        Prior::LogNormal { mu, sigma } => {
-            format!("lognormal(mu {}, sigma {})", sig(*mu, 6), sig(*sigma, 6))
-        }
+        Prior::Normal { mean, sd } => format!("normal(mean {mean}, sd {sd})"),
+        Prior::LogNormal { mu, sigma } => format!("lognormal(mu {mu}, sigma {sigma})"),
     }
 }
 
 fn noise_text(n: &Noise) -> String {
     match n {
-        Noise::Sd(v) => format!("known sd {}", sig(*v, 6)),
+        Noise::Sd(v) => format!("known sd {v}"),
         Noise::Column(c) => format!("known sd per row (column `{c}`)"),
-        Noise::Unknown { shape, scale } => format!(
-            "unknown; inverse-gamma prior on the variance (shape {}, scale {})",
-            sig(*shape, 6),
-            sig(*scale, 6)
-        ),
+        Noise::Unknown { shape, scale } => {
+            format!("unknown; inverse-gamma prior on the variance (shape {shape}, scale {scale})")
+        }
     }
 }
 
@@ -192,9 +193,9 @@ fn study_section(h: &mut String, s: &Study) {
                     "<span class=\"text\">{}</span>",
                     esc(p.unit.as_deref().unwrap_or("–"))
                 ),
-                sig(p.lo, 6),
-                sig(p.hi, 6),
-                esc(&prior_text(&p.prior)),
+                p.lo.to_string(),
+                p.hi.to_string(),
+                format!("<span class=\"text\">{}</span>", esc(&prior_text(&p.prior))),
             ]
         })
         .collect();
@@ -220,11 +221,11 @@ fn study_section(h: &mut String, s: &Study) {
                 .collect();
             vec![
                 esc(&e.name),
-                esc(&settings.join(", ")),
+                format!("<span class=\"text\">{}</span>", esc(&settings.join(", "))),
                 format!("<code>{}</code>", esc(&e.data_path.display().to_string())),
                 e.data.rows.len().to_string(),
                 e.data.stations().len().to_string(),
-                esc(&noise_text(&e.noise)),
+                format!("<span class=\"text\">{}</span>", esc(&noise_text(&e.noise))),
             ]
         })
         .collect();
@@ -242,9 +243,9 @@ fn study_section(h: &mut String, s: &Study) {
     let c = &s.calibration;
     let _ = writeln!(
         h,
-        "<p class=\"muted\">Design: {:?}, {} points, seed {}, space {:?}. Surrogate: {:?} kernel, {:?} mean, seed {}. Calibration: {} chains × ({} warm-up + {} draws), seed {}.</p>\n</section>",
-        s.design.method, s.design.points, s.design.seed, s.design.space,
-        s.surrogate.kernel, s.surrogate.mean, s.surrogate.seed,
+        "<p class=\"muted\">Design: {}, {} points, seed {}, space {}. Surrogate: {} kernel, {} mean, seed {}. Calibration: {} chains × ({} warm-up + {} draws), seed {}.</p>\n</section>",
+        lower(s.design.method), s.design.points, s.design.seed, lower(s.design.space),
+        crate::surrogate::Kernel::from(s.surrogate.kernel).name(), lower(s.surrogate.mean), s.surrogate.seed,
         c.chains, c.warmup, c.draws, c.seed
     );
 }
@@ -258,13 +259,13 @@ fn design_section(h: &mut String, r: &ReportInput) {
     let d = &dv.design;
     let _ = writeln!(
         h,
-        "<p>{} points in {} round{}; method {:?}, seed {}, space {:?}.</p>",
+        "<p>{} points in {} round{}; method {}, seed {}, space {}.</p>",
         d.points.len(),
         d.rounds.len(),
         if d.rounds.len() == 1 { "" } else { "s" },
-        d.method,
+        lower(d.method),
         d.seed,
-        d.space
+        lower(d.space)
     );
     if let Some(q) = &d.quality {
         let _ = writeln!(
@@ -360,6 +361,7 @@ fn runs_section(h: &mut String, r: &ReportInput) {
             "experiment",
             "done",
             "failed",
+            "queued",
             "running",
             "pending",
             "simulator time of done runs, s",
@@ -611,7 +613,10 @@ fn posterior_section(h: &mut String, r: &ReportInput) {
                 c.draws.to_string(),
                 format!("{:.3}", c.acceptance_rate),
                 sig(c.step_scale, 3),
-                esc(&format!("{:?}", c.termination)),
+                esc(&serde_json::to_value(c.termination)
+                    .ok()
+                    .and_then(|v| v.as_str().map(str::to_string))
+                    .unwrap_or_else(|| format!("{:?}", c.termination))),
             ]
         })
         .collect();
