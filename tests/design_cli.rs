@@ -169,6 +169,7 @@ fn add_keeps_old_points_and_runs_and_appends_a_round() {
         .find(|l| l.split_whitespace().next() == Some(EXPERIMENT))
         .expect("a status line");
     let counts: Vec<&str> = line.split_whitespace().skip(1).collect();
+    // pending, queued, running, done, failed
     assert_eq!(counts, ["3", "0", "0", "4", "0"], "{out}");
 
     // The augmented design still matches the study: a plain `assay design` keeps it.

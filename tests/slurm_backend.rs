@@ -375,3 +375,97 @@ fn job_script_carries_the_options_and_quotes_arguments() {
         );
     }
 }
+
+/// A simulator past `timeout_s` is stopped inside its task and the run fails with the
+/// timeout named, as on the local backend.
+#[test]
+fn a_run_past_its_timeout_is_stopped_inside_its_task() {
+    let _g = SLURM.lock().unwrap_or_else(|e| e.into_inner());
+    if !slurm_ready("a_run_past_its_timeout_is_stopped_inside_its_task") {
+        return;
+    }
+    let env = Env::new();
+    let study = slurm_study(&env, "hang", "", 0);
+    let text = std::fs::read_to_string(&study).expect("study");
+    std::fs::write(&study, edit(&text, "timeout_s: 20", "timeout_s: 2")).expect("write");
+    env.assay(["design"]).arg(&study).assert().success();
+    env.assay(["run"])
+        .arg(&study)
+        .assert()
+        .code(EXIT_RUNS_FAILED);
+    for (label, r) in runs_of(&env.campaign()) {
+        assert_eq!(r.state, "failed", "{label}");
+        let reason = r.reason.unwrap_or_default();
+        assert!(reason.contains("timed out after 2 s"), "{label}: {reason}");
+    }
+}
+
+/// Ctrl-C while `assay run` waits: it stops waiting at once, leaves the jobs in Slurm,
+/// says how to collect and cancel them; the next `run` collects without resubmitting.
+#[test]
+fn ctrl_c_leaves_the_jobs_running_and_the_next_run_collects_them() {
+    use nix::sys::signal::{kill, Signal};
+    use nix::unistd::Pid;
+    let _g = SLURM.lock().unwrap_or_else(|e| e.into_inner());
+    if !slurm_ready("ctrl_c_leaves_the_jobs_running_and_the_next_run_collects_them") {
+        return;
+    }
+    let env = Env::new();
+    let study = slurm_study(&env, "slow", "    array_limit: 1\n", 0);
+    env.assay(["design"]).arg(&study).assert().success();
+    let child = Command::new(env!("CARGO_BIN_EXE_assay"))
+        .arg("--runs")
+        .arg(env.runs_root())
+        .args(["--quiet", "run"])
+        .arg(&study)
+        .stdout(std::process::Stdio::piped())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .expect("assay starts");
+    let deadline = Instant::now() + Duration::from_secs(30);
+    loop {
+        let runs = if env.campaign().join("runs").exists() {
+            runs_of(&env.campaign())
+        } else {
+            BTreeMap::new()
+        };
+        if runs.len() == N_POINTS && runs.values().all(|r| r.slurm.is_some()) {
+            break;
+        }
+        assert!(Instant::now() < deadline, "the runs were not submitted");
+        std::thread::sleep(Duration::from_millis(100));
+    }
+    kill(Pid::from_raw(child.id() as i32), Signal::SIGINT).expect("SIGINT");
+    let t0 = Instant::now();
+    let out = child.wait_with_output().expect("assay ends");
+    assert!(
+        t0.elapsed() < Duration::from_secs(5),
+        "assay kept waiting after Ctrl-C"
+    );
+    let text = stdout_of(&out);
+    let runs = runs_of(&env.campaign());
+    let job = runs
+        .values()
+        .next()
+        .unwrap()
+        .slurm
+        .as_ref()
+        .unwrap()
+        .array_job_id
+        .clone();
+    assert!(text.contains(&format!("scancel {job}")), "{text}");
+    let q = Command::new("squeue")
+        .args(["-h", "-r", "-o", "%i", "-j", &job])
+        .output()
+        .expect("squeue");
+    assert!(
+        !String::from_utf8_lossy(&q.stdout).trim().is_empty(),
+        "the jobs were cancelled by Ctrl-C"
+    );
+    env.assay(["run"]).arg(&study).assert().success();
+    for (label, r) in runs_of(&env.campaign()) {
+        assert_eq!(r.state, "done", "{label}");
+        assert_eq!(r.attempts, 1, "{label}: collected, not submitted again");
+        assert_eq!(r.slurm.unwrap().array_job_id, job, "{label}");
+    }
+}
