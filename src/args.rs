@@ -9,6 +9,9 @@ Examples:
   assay all models/cantilever/study.yaml          design, run, fit and calibrate, reusing up-to-date stages
   assay run --jobs 8 study.yaml                   run pending and failed runs, 8 at a time
   assay run --backend slurm --detach study.yaml   submit the runs to Slurm as job arrays and return
+  assay verify models/cantilever/study.yaml       re-hash the records and their files, list stale stages
+  assay report models/cantilever/study.yaml       write runs/cantilever/report.html
+  assay schema > study.schema.json                JSON Schema of the study file, for editors
   assay --runs /scratch/me/campaigns status study.yaml
 
 Exit codes: 0 success; 2 bad input (study, data, arguments); 3 finished but some runs failed; 1 other failures.
@@ -63,9 +66,35 @@ pub enum Command {
         after_help = "Example:\n  assay predict models/cantilever/study.yaml --at points.csv --out predictions.csv\n\nPOINTS.csv has a header naming every parameter; the output has the parameters, then\nEXP.Y.mean and EXP.Y.sd per experiment and output (curves: EXP.Y@X.mean, EXP.Y@X.sd)."
     )]
     Predict(PredictArgs),
+    /// Self-contained HTML report with plots (report.html in the campaign folder).
+    #[command(
+        after_help = "Examples:\n  assay report models/cantilever/study.yaml\n  assay report models/cantilever/study.yaml --out /tmp/cantilever.html\n\nOne HTML file with inline SVG plots: no network, no JavaScript; prints on paper and reads\non a phone. Needs design.yaml; shows whatever later records exist (runs, surrogate, posterior)."
+    )]
+    Report(ReportArgs),
+    /// Re-hash the records and the files they name; list stale stages (exit 0 only if all is consistent).
+    #[command(
+        after_help = "Examples:\n  assay verify models/cantilever/study.yaml\n  assay --runs /scratch/me/campaigns verify study.yaml\n\nChecks every run's output against its run.yaml, the samples against posterior.yaml,\nand that each record still names the current study parts and earlier records (design →\nruns → surrogate → posterior). Prints one line per stage and one per problem.\nExit codes: 0 consistent; 1 a file is missing, altered or unreadable, or a stage is stale;\n2 bad study file."
+    )]
+    Verify(StudyArg),
     /// Every stage in order, reusing stages whose inputs are unchanged.
-    #[command(after_help = "Example:\n  assay all models/cantilever/study.yaml")]
+    #[command(
+        after_help = "Example:\n  assay all models/cantilever/study.yaml\n\nA stage is redone when `assay verify` would call it stale or its record is missing or\nbroken: a change to the parameters or design settings makes a new design (finished runs\nof replaced points are kept under superseded/), new points are run, and the surrogate,\nposterior and report follow. A changed simulator definition is refused as in `assay run`."
+    )]
     All(RunArgs),
+    /// Print the JSON Schema (draft 2020-12) of the study file, for editors and linters.
+    #[command(
+        after_help = "Examples:\n  assay schema > study.schema.json\n\nThe schema is generated from the types the study reader uses, so it accepts exactly the\nkeys and forms `assay validate` accepts (value checks such as low < high are left to\n`assay validate`). With the YAML language server, put this first line in a study file:\n  # yaml-language-server: $schema=study.schema.json"
+    )]
+    Schema,
+}
+
+#[derive(Debug, Args)]
+pub struct ReportArgs {
+    #[command(flatten)]
+    pub study: StudyArg,
+    /// Write the report here instead of <campaign>/report.html.
+    #[arg(long, value_name = "FILE.html")]
+    pub out: Option<PathBuf>,
 }
 
 #[derive(Debug, Args)]

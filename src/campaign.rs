@@ -4,6 +4,7 @@
 //! Layout of `<runs>/<study name>/`: `design.yaml`, `runs/<point>/<experiment>/run.yaml`,
 //! `surrogate.yaml`, `posterior.yaml`, `posterior-samples.csv`.
 
+use crate::audit::{self, Freshness};
 use crate::calibrate::{
     sample, summarize, Emulator, ExperimentLikelihood, LogPosterior, PosteriorBody,
     PosteriorSummary, SamplerParams,
@@ -39,6 +40,7 @@ pub const DESIGN_FILE: &str = "design.yaml";
 pub const SURROGATE_FILE: &str = "surrogate.yaml";
 pub const POSTERIOR_FILE: &str = "posterior.yaml";
 pub const SAMPLES_FILE: &str = "posterior-samples.csv";
+pub const REPORT_FILE: &str = "report.html";
 
 impl Campaign {
     pub fn new(study: Study, runs_root: &Path, command_line: Vec<String>) -> Self {
@@ -77,7 +79,7 @@ pub enum DesignOutcome {
 }
 
 /// Why an existing design does not fit the study, if it does not.
-fn design_mismatch(study: &Study, existing: &Design) -> Option<String> {
+pub(crate) fn design_mismatch(study: &Study, existing: &Design) -> Option<String> {
     let s = &study.design;
     if existing.names != study.parameter_names() {
         return Some(format!(
@@ -120,19 +122,23 @@ pub fn write_design(c: &Campaign, force: bool) -> Result<(Design, DesignOutcome)
     let path = c.path(DESIGN_FILE);
     if path.exists() && !force {
         let existing = load_design(c)?;
-        match design_mismatch(&c.study, &existing) {
-            None => return Ok((existing, DesignOutcome::Kept)),
-            Some(why) => {
+        let (check, _) = audit::check_design(c)?;
+        match check.freshness {
+            Freshness::Stale(why) => {
                 return Err(InputError(format!(
-                    "{} exists but does not match the study: {why}. Use `assay design --force` to replace it (runs of removed points stay on disk but are no longer used)",
-                    path.display()
+                    "{} exists but does not match the study: {}. Use `assay design --force` to replace it (finished runs of replaced points are moved to {}/)",
+                    path.display(),
+                    why.join("; "),
+                    runs::SUPERSEDED_DIR
                 ))
                 .into())
             }
+            _ => return Ok((existing, DesignOutcome::Kept)),
         }
     }
     let mut clock = c.clock();
     c.hash_study_inputs(&mut clock)?;
+    clock.study_parts(audit::design_parts(&c.study));
     clock.seed("design", c.study.design.seed);
     let d = design::generate(&c.study.parameters, &c.study.design)
         .map_err(|e| InputError(format!("cannot make the design: {e}")))?;
@@ -172,6 +178,7 @@ pub fn augment_design(c: &Campaign, n: usize) -> Result<Design> {
     // The previous design.yaml is not listed among the inputs: it is overwritten here,
     // so its hash could never be checked again; its points and rounds are kept instead.
     c.hash_study_inputs(&mut clock)?;
+    clock.study_parts(audit::design_parts(&c.study));
     clock.seed("design", existing.seed);
     let d = design::augment(&existing, &c.study.parameters, n)
         .map_err(|e| InputError(format!("cannot add points: {e}")))?;
@@ -381,10 +388,21 @@ pub fn fit_stage(c: &Campaign) -> Result<(FittedSurrogate, BTreeMap<String, usiz
             er.experiment.clone(),
             design.points.len() - er.point_ids.len(),
         );
-        for (id, h) in er.point_ids.iter().zip(&er.record_sha256) {
-            clock.input_hash(&format!("runs/{id}/{}/run.yaml", er.experiment), h);
+        for ((id, h), out) in er
+            .point_ids
+            .iter()
+            .zip(&er.record_sha256)
+            .zip(&er.output_sha256)
+        {
+            let dir = format!("runs/{id}/{}", er.experiment);
+            clock.input_hash(&format!("{dir}/run.yaml"), h);
+            if let Some(out) = out {
+                let file = &c.study.simulator.output.file;
+                clock.input_hash(&format!("{dir}/{file}"), out);
+            }
         }
     }
+    clock.study_parts(audit::surrogate_parts(&c.study));
     let seed = c.study.surrogate.seed;
     clock.seed("surrogate", seed);
     let fitted = fit_surrogate(&set, &c.study.parameters, c.study.surrogate, seed)?;
@@ -469,6 +487,7 @@ pub fn calibrate_stage(
     let mut clock = c.clock();
     c.hash_study_inputs(&mut clock)?;
     clock.input_named(SURROGATE_FILE, &c.path(SURROGATE_FILE))?;
+    clock.study_parts(audit::posterior_parts(&c.study));
     let fitted = rec.body.to_fitted()?;
     let mut experiments: Vec<(&dyn Emulator, ExperimentLikelihood)> = Vec::new();
     for e in &c.study.experiments {
@@ -570,41 +589,144 @@ fn mtime(p: &Path) -> Option<SystemTime> {
     std::fs::metadata(p).and_then(|m| m.modified()).ok()
 }
 
-/// Is the record at `output` missing or older than any of `inputs`?
-pub fn is_stale(output: &Path, inputs: &[PathBuf]) -> bool {
-    let Some(out) = mtime(output) else {
-        return true;
-    };
-    inputs
-        .iter()
-        .any(|i| mtime(i).map(|t| t > out).unwrap_or(true))
+/// Read a campaign record when it exists.
+fn read_if_exists<T: serde::de::DeserializeOwned>(
+    c: &Campaign,
+    file: &str,
+) -> Result<Option<Record<T>>> {
+    let path = c.path(file);
+    if path.exists() {
+        Ok(Some(read_record(&path)?))
+    } else {
+        Ok(None)
+    }
 }
 
-/// Inputs of the fit stage: the study's files, the design and every run record.
-pub fn fit_inputs(c: &Campaign) -> Result<Vec<PathBuf>> {
-    let design = load_design(c)?;
-    let mut v = c.study.input_files();
-    v.push(c.path(DESIGN_FILE));
-    for p in &design.points {
+/// Write the HTML report to `out`: read the records that exist, recompute the
+/// leave-one-out predictions and the predictive bands, check the audit trail, render.
+///
+/// # Errors
+/// No design yet, a malformed record or samples file, or I/O.
+pub fn report_stage(c: &Campaign, out: &Path) -> Result<()> {
+    use crate::report::{self, compute, DesignView, PosteriorView, ReportInput, SurrogateView};
+    let design_rec: Record<DesignBody> = read_stage_record(c, DESIGN_FILE, "design")?;
+    let design = design_rec
+        .body
+        .to_design()
+        .with_context(|| format!("{} is malformed", c.path(DESIGN_FILE).display()))?;
+    let (_, runs) = runs::load_runs(&c.study, &design, &c.dir)?;
+    let surrogate = match read_if_exists::<SurrogateBody>(c, SURROGATE_FILE)? {
+        None => None,
+        Some(rec) => {
+            let fitted = rec.body.to_fitted()?;
+            Some((rec, fitted))
+        }
+    };
+    let posterior = match read_if_exists::<PosteriorBody>(c, POSTERIOR_FILE)? {
+        None => None,
+        Some(rec) => {
+            // Without readable samples the report still shows the posterior table and
+            // says why the plots are missing (the audit section names the file too).
+            let path = c.path(SAMPLES_FILE);
+            let samples = std::fs::read_to_string(&path)
+                .map_err(|e| format!("cannot read {SAMPLES_FILE}: {e}"))
+                .and_then(|text| {
+                    compute::Samples::parse_csv(&text).map_err(|e| format!("{SAMPLES_FILE}:{e}"))
+                });
+            Some((rec, samples))
+        }
+    };
+    let posterior_view = posterior.map(|(rec, samples)| {
+        let mut predictive = Vec::new();
+        let mut notes = Vec::new();
+        let (samples, samples_problem) = match samples {
+            Ok(s) => (s, None),
+            Err(e) => (
+                compute::Samples {
+                    columns: Vec::new(),
+                    chains: Vec::new(),
+                },
+                Some(e),
+            ),
+        };
+        let rows = samples.thinned(report::PREDICTIVE_DRAWS);
+        let cols: Vec<Option<usize>> = c
+            .study
+            .parameters
+            .iter()
+            .map(|p| samples.column(&p.name))
+            .collect();
+        let draws: Vec<Vec<f64>> = if samples_problem.is_some() {
+            Vec::new()
+        } else if cols.iter().all(Option::is_some) {
+            rows.iter()
+                .map(|r| cols.iter().map(|j| r[j.expect("checked")]).collect())
+                .collect()
+        } else {
+            notes.push("the samples do not have a column for every parameter of the study: run `assay calibrate` again".into());
+            Vec::new()
+        };
         for e in &c.study.experiments {
-            let r = runs::run_record_path(&c.dir, &p.id, &e.name);
-            if r.exists() {
-                v.push(r);
+            let Some((_, fitted)) = &surrogate else {
+                notes.push("no surrogate.yaml: predictive bands need the surrogate".into());
+                break;
+            };
+            let Some(model) = fitted.experiments.iter().find(|m| m.experiment == e.name) else {
+                notes.push(format!("the surrogate has no experiment `{}`", e.name));
+                continue;
+            };
+            let noise: Option<Vec<f64>> = samples
+                .column(&format!("noise_sd.{}", e.name))
+                .map(|j| rows.iter().map(|r| r[j]).collect());
+            match compute::predictive(
+                &c.study,
+                e,
+                model,
+                model.outputs.len(),
+                &draws,
+                noise.as_deref(),
+            ) {
+                Some(q) => predictive.extend(q),
+                None if !draws.is_empty() => notes.push(format!(
+                    "{}: the surrogate's outputs do not match the field data (run `assay all` to bring the records up to date)",
+                    e.name
+                )),
+                None => {}
             }
         }
-    }
-    Ok(v)
-}
-
-/// Inputs of the calibration stage.
-pub fn calibrate_inputs(c: &Campaign) -> Vec<PathBuf> {
-    let mut v = c.study.input_files();
-    v.push(c.path(SURROGATE_FILE));
-    if let Some(p) = &c.study.calibration.prior_from {
-        v.push(p.clone());
-        v.push(p.with_file_name("posterior-samples.csv"));
-    }
-    v
+        PosteriorView {
+            body: rec.body,
+            provenance: rec.provenance,
+            n_predictive_draws: draws.len(),
+            samples,
+            samples_problem,
+            predictive,
+            predictive_notes: notes,
+        }
+    });
+    let surrogate_view = surrogate.map(|(rec, fitted)| SurrogateView {
+        loo: fitted
+            .experiments
+            .iter()
+            .map(|m| (m.experiment.clone(), compute::loo_of(m)))
+            .collect(),
+        body: rec.body,
+        provenance: rec.provenance,
+    });
+    let input = ReportInput {
+        study: &c.study,
+        generated_utc: chrono::Utc::now().to_rfc3339_opts(chrono::SecondsFormat::Secs, true),
+        tool_version: env!("CARGO_PKG_VERSION").to_string(),
+        design: Some(DesignView {
+            design,
+            provenance: design_rec.provenance,
+        }),
+        runs,
+        surrogate: surrogate_view,
+        posterior: posterior_view,
+        verification: audit::verify(c).ok(),
+    };
+    write_atomic(out, report::render(&input).as_bytes())
 }
 
 /// Parse prediction points: a CSV whose header names every parameter (any order).

@@ -1,15 +1,18 @@
 //! assay: calibrate the parameters of expensive simulators.
 //!
 //! A pipeline of stages, each a module: [`study`] → [`design`] → [`runs`] →
-//! [`surrogate`] → [`calibrate`], with [`record`] for the YAML records they leave.
+//! [`surrogate`] → [`calibrate`], with [`record`] for the YAML records they leave and
+//! [`audit`] to check them.
 //! The numerical stages (design, surrogate, calibrate) open no files and print nothing.
 #![deny(unsafe_code)]
 
+pub mod audit;
 mod blas;
 pub mod calibrate;
 pub mod design;
 pub mod progress;
 pub mod record;
+pub mod report;
 pub mod rng;
 pub mod runs;
 pub mod study;

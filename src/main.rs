@@ -6,6 +6,7 @@ mod plan;
 
 use anyhow::{Context, Result};
 use args::{Cli, Command};
+use assay::audit::{self, Depth, Freshness, Stage, Verification};
 use assay::calibrate::{Diagnostics, ParameterSummary, PosteriorBody};
 use assay::campaign::{self, Campaign, DesignOutcome, InputError};
 use assay::progress::Observer;
@@ -345,6 +346,46 @@ fn print_posterior(c: &Campaign) -> Result<()> {
     Ok(())
 }
 
+/// Print `assay verify`'s findings; returns the number of problems (stale stages and
+/// missing, altered or unreadable files).
+fn print_verification(c: &Campaign, v: &Verification) -> usize {
+    out!(
+        "verify {} (study {})",
+        c.dir.display(),
+        c.study.file.display()
+    );
+    let mut n = 0;
+    for s in &v.stages {
+        let notes = if s.notes.is_empty() {
+            String::new()
+        } else {
+            format!(" ({})", s.notes.join("; "))
+        };
+        match &s.freshness {
+            Freshness::NotRun => out!("  {:<10} not run yet", s.stage.name()),
+            Freshness::Fresh if s.findings.is_empty() => {
+                out!("  {:<10} ok{notes}", s.stage.name())
+            }
+            Freshness::Fresh => out!("  {:<10} files do not match{notes}", s.stage.name()),
+            Freshness::Stale(why) => {
+                n += 1;
+                out!("  {:<10} stale{notes}", s.stage.name());
+                for w in why {
+                    out!("  {:<10}   - {w}", "");
+                }
+            }
+        }
+        for f in &s.findings {
+            n += 1;
+            out!("  {:<10} {}: {}", f.problem.to_string(), f.file, f.detail);
+        }
+    }
+    if n == 0 {
+        out!("ok: every record matches its files, the study and the records before it");
+    }
+    n
+}
+
 fn print_fit(
     c: &Campaign,
     s: &assay::surrogate::FittedSurrogate,
@@ -476,13 +517,20 @@ fn execute(cli: &Cli) -> Result<bool> {
     let command_line: Vec<String> = std::env::args().collect();
     let obs = observer(cli.quiet);
     let stop = stop_flag();
-    let (study_path, _) = match &cli.command {
-        Command::Validate(a) | Command::Status(a) | Command::Fit(a) | Command::Calibrate(a) => {
-            (&a.study, ())
+    let study_path = match &cli.command {
+        Command::Schema => {
+            out!("{}", study::schema_json());
+            return Ok(false);
         }
-        Command::Design(a) => (&a.study.study, ()),
-        Command::Predict(a) => (&a.study.study, ()),
-        Command::Run(a) | Command::All(a) => (&a.study.study, ()),
+        Command::Validate(a)
+        | Command::Status(a)
+        | Command::Fit(a)
+        | Command::Calibrate(a)
+        | Command::Verify(a) => &a.study,
+        Command::Design(a) => &a.study.study,
+        Command::Predict(a) => &a.study.study,
+        Command::Report(a) => &a.study.study,
+        Command::Run(a) | Command::All(a) => &a.study.study,
     };
     let study = load_study(study_path)?;
     let c = Campaign::new(study, &cli.runs, command_line);
@@ -567,6 +615,26 @@ fn execute(cli: &Cli) -> Result<bool> {
             interruptible(|| campaign::calibrate_stage(&c, stop, obs.as_ref()))?;
             print_posterior(&c)?;
         }
+        Command::Schema => unreachable!("handled before the study is read"),
+        Command::Verify(_) => {
+            let v = audit::verify(&c)?;
+            let n = print_verification(&c, &v);
+            if n > 0 {
+                anyhow::bail!(
+                    "{} does not verify: {n} problem{} (listed above)",
+                    c.dir.display(),
+                    if n == 1 { "" } else { "s" }
+                );
+            }
+        }
+        Command::Report(a) => {
+            let path = a
+                .out
+                .clone()
+                .unwrap_or_else(|| c.path(campaign::REPORT_FILE));
+            campaign::report_stage(&c, &path)?;
+            out!("report: {}", path.display());
+        }
         Command::All(a) => {
             if a.detach {
                 return Err(InputError(
@@ -576,11 +644,25 @@ fn execute(cli: &Cli) -> Result<bool> {
                 .into());
             }
             let _lock = campaign::lock(&c)?;
-            let (d, how) = campaign::write_design(&c, false)?;
-            let verb = if how == DesignOutcome::Kept {
-                "kept"
-            } else {
-                "written"
+            // One rule for what to redo: the checks of `assay verify` (without re-hashing
+            // the simulator outputs, which decide no stage's staleness).
+            let v = audit::verify_to(&c, Depth::Records)?;
+            let design_check = v.stage(Stage::Design);
+            let (d, verb) = match &design_check.freshness {
+                Freshness::Stale(why) if design_check.findings.is_empty() => {
+                    out!("design: stale ({})", why.join("; "));
+                    let (d, _) = campaign::write_design(&c, true)?;
+                    (d, "written anew")
+                }
+                _ => {
+                    let (d, how) = campaign::write_design(&c, false)?;
+                    let verb = if how == DesignOutcome::Kept {
+                        "kept"
+                    } else {
+                        "written"
+                    };
+                    (d, verb)
+                }
             };
             out!("design: {} points {verb}", d.points.len());
             let s = interruptible(|| {
@@ -591,24 +673,30 @@ fn execute(cli: &Cli) -> Result<bool> {
             if stop.load(Ordering::SeqCst) || s.in_flight > 0 {
                 anyhow::bail!("interrupted; run the same command again to continue");
             }
-            if campaign::is_stale(
-                &c.path(campaign::SURROGATE_FILE),
-                &campaign::fit_inputs(&c)?,
-            ) {
+            if audit::verify_to(&c, Depth::Records)?
+                .stage(Stage::Surrogate)
+                .needs_redo()
+            {
                 let (s, excluded) = campaign::fit_stage(&c)?;
                 print_fit(&c, &s, &excluded);
             } else {
                 out!("surrogate: up to date");
             }
-            if campaign::is_stale(
-                &c.path(campaign::POSTERIOR_FILE),
-                &campaign::calibrate_inputs(&c),
-            ) {
+            if audit::verify_to(&c, Depth::Records)?
+                .stage(Stage::Posterior)
+                .needs_redo()
+            {
                 interruptible(|| campaign::calibrate_stage(&c, stop, obs.as_ref()))?;
+                if stop.load(Ordering::SeqCst) {
+                    anyhow::bail!("interrupted; run the same command again to continue");
+                }
             } else {
                 out!("posterior: up to date");
             }
             print_posterior(&c)?;
+            let report = c.path(campaign::REPORT_FILE);
+            campaign::report_stage(&c, &report)?;
+            out!("report: {}", report.display());
             out!("records: {}", c.dir.display());
         }
     }

@@ -118,6 +118,7 @@ fn runs(n: usize, seed: u64) -> (RunSet, Vec<Parameter>) {
         outputs,
         value_names: STATIONS.iter().map(|s| format!("y@{s}")).collect(),
         record_sha256: vec![String::new(); n],
+        output_sha256: vec![None; n],
     };
     (
         RunSet {

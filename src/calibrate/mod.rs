@@ -21,5 +21,5 @@ pub use prior::{ln_prior, InverseGamma, MvnPrior, Transform};
 pub use sampler::{converged, sample, Chain, SamplerParams, Termination};
 pub use summary::{
     summarize, Correlation, Marginal, Mcse, NoiseMcse, NoiseSummary, ParameterSummary,
-    PosteriorBody, PosteriorSummary, ESS_WARN, RHAT_WARN,
+    PosteriorBody, PosteriorSummary, CAUTION, ESS_WARN, RHAT_WARN,
 };

@@ -22,6 +22,11 @@ pub struct Provenance {
     pub elapsed_s: f64,
     /// sha256 of every input file read, by path.
     pub inputs: BTreeMap<String, String>,
+    /// sha256 of each part of the study the stage depends on (by part name, e.g.
+    /// `parameters`, `design`): what decides whether the stage is stale. Absent in run
+    /// records (a run's `key` plays that role) and in records of earlier versions.
+    #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
+    pub study_parts: BTreeMap<String, String>,
     /// Seeds used, by purpose.
     pub seeds: BTreeMap<String, u64>,
     /// Random generator, when any was used.
@@ -35,6 +40,7 @@ pub struct ProvenanceClock {
     instant: Instant,
     command_line: Vec<String>,
     inputs: BTreeMap<String, String>,
+    study_parts: BTreeMap<String, String>,
     seeds: BTreeMap<String, u64>,
     rng: Option<String>,
 }
@@ -46,6 +52,7 @@ impl ProvenanceClock {
             instant: Instant::now(),
             command_line,
             inputs: BTreeMap::new(),
+            study_parts: BTreeMap::new(),
             seeds: BTreeMap::new(),
             rng: None,
         }
@@ -69,6 +76,11 @@ impl ProvenanceClock {
     /// Note an input whose hash is already known.
     pub fn input_hash(&mut self, name: &str, sha256: &str) {
         self.inputs.insert(name.to_string(), sha256.to_string());
+    }
+
+    /// Note the hashes of the study parts the stage depends on.
+    pub fn study_parts(&mut self, parts: BTreeMap<String, String>) {
+        self.study_parts = parts;
     }
 
     pub fn seed(&mut self, purpose: &str, seed: u64) {
@@ -95,6 +107,7 @@ impl ProvenanceClock {
             ended_utc: ended.to_rfc3339_opts(SecondsFormat::Millis, true),
             elapsed_s: self.instant.elapsed().as_secs_f64(),
             inputs: self.inputs,
+            study_parts: self.study_parts,
             seeds: self.seeds,
             rng: self.rng,
         }

@@ -18,10 +18,10 @@ mod store;
 
 pub use identity::{fingerprint, run_key, value_names};
 pub use lock::{acquire as lock_campaign, CampaignLock, LockError};
-pub use plan::RunsError;
+pub use plan::{RunsError, SUPERSEDED_DIR};
 pub use store::{
-    load_runs, run_dir, run_record_path, status_counts, Attempt, ExperimentRuns, Fingerprint,
-    RunBody, RunSet, RunState, SlurmTask, StateCounts,
+    load_runs, run_dir, run_record_path, same_point, status_counts, Attempt, ExperimentRuns,
+    Fingerprint, RunBody, RunSet, RunState, SlurmTask, StateCounts,
 };
 
 use crate::design::Design;

@@ -2,7 +2,7 @@
 //! still in Slurm, and whether the simulator changed under done runs.
 
 use super::identity::fingerprint;
-use super::store::{run_record_path, Fingerprint, RunBody, RunState};
+use super::store::{run_dir, run_record_path, same_point, Fingerprint, RunBody, RunState};
 use crate::design::{Design, DesignPoint};
 use crate::record::{read_record, sha256_file, Record};
 use crate::study::{Experiment, Study};
@@ -69,6 +69,8 @@ pub(crate) fn plan<'a>(
     let mut changed: Vec<String> = Vec::new();
     let mut n_changed = 0;
     let mut example = String::new();
+    let names = study.parameter_names();
+    let mut superseded = Vec::new();
     for p in &design.points {
         for e in &study.experiments {
             let path = run_record_path(campaign, &p.id, &e.name);
@@ -82,6 +84,16 @@ pub(crate) fn plan<'a>(
                         point: p,
                         experiment: e,
                         previous: Some(b),
+                    });
+                    continue;
+                }
+                if !same_point(&names, &b.parameters, &p.values) {
+                    // Made for an earlier design's point with this id: a new run.
+                    superseded.push((p.id.as_str(), e.name.as_str()));
+                    todo.push(Todo {
+                        point: p,
+                        experiment: e,
+                        previous: None,
                     });
                     continue;
                 }
@@ -126,6 +138,9 @@ pub(crate) fn plan<'a>(
         }
         .into());
     }
+    for (point, experiment) in superseded {
+        supersede(campaign, point, experiment)?;
+    }
     let mut inputs = BTreeMap::new();
     for f in study.input_files() {
         let h = sha256_file(&f).with_context(|| format!("cannot hash {}", f.display()))?;
@@ -142,6 +157,25 @@ pub(crate) fn plan<'a>(
         skipped,
         inputs,
     })
+}
+
+/// Folder under the campaign where runs of replaced design points are kept.
+pub const SUPERSEDED_DIR: &str = "superseded";
+
+/// Move the folder of a run made for an earlier design (same point id, other values) to
+/// `superseded/<point>/<experiment>.<UTC time>`: finished simulator runs are never
+/// deleted.
+fn supersede(campaign: &Path, point: &str, experiment: &str) -> Result<()> {
+    let from = run_dir(campaign, point, experiment);
+    let stamp = chrono::Utc::now().format("%Y%m%dT%H%M%S%.3fZ");
+    let to = campaign
+        .join(SUPERSEDED_DIR)
+        .join(point)
+        .join(format!("{experiment}.{stamp}"));
+    std::fs::create_dir_all(to.parent().expect("has a parent"))
+        .with_context(|| format!("cannot create {}", to.display()))?;
+    std::fs::rename(&from, &to)
+        .with_context(|| format!("cannot move {} to {}", from.display(), to.display()))
 }
 
 /// Array job ids of runs in flight, sorted and unique.

@@ -135,6 +135,16 @@ pub fn run_record_path(campaign: &Path, point: &str, experiment: &str) -> PathBu
     run_dir(campaign, point, experiment).join("run.yaml")
 }
 
+/// Whether a run record's parameter values are exactly (bit for bit) a design point's:
+/// a run made for an earlier design at the same point id is not a run of this point.
+pub fn same_point(names: &[String], recorded: &BTreeMap<String, f64>, values: &[f64]) -> bool {
+    recorded.len() == values.len()
+        && names
+            .iter()
+            .zip(values)
+            .all(|(n, v)| recorded.get(n).map(|r| r.to_bits()) == Some(v.to_bits()))
+}
+
 /// Done runs of one experiment, ready for the surrogate.
 #[derive(Debug, Clone)]
 pub struct ExperimentRuns {
@@ -147,6 +157,8 @@ pub struct ExperimentRuns {
     pub value_names: Vec<String>,
     /// sha256 of each run's `run.yaml`, for provenance.
     pub record_sha256: Vec<String>,
+    /// sha256 of each run's output file (its `outputs_sha256`), for provenance.
+    pub output_sha256: Vec<Option<String>>,
 }
 
 /// Done runs of every experiment.
@@ -155,7 +167,8 @@ pub struct RunSet {
     pub experiments: Vec<ExperimentRuns>,
 }
 
-/// Read every run record of the design; missing records count as pending.
+/// Read every run record of the design; missing records, and records made at other
+/// parameter values (an earlier design's point with the same id), count as pending.
 ///
 /// # Errors
 /// An unreadable or malformed `run.yaml`.
@@ -174,13 +187,19 @@ pub fn load_runs(
             outputs: vec![],
             value_names: vec![],
             record_sha256: vec![],
+            output_sha256: vec![],
         };
+        let names = study.parameter_names();
         for p in &design.points {
             let path = run_record_path(campaign, &p.id, &e.name);
             if !path.exists() {
                 continue;
             }
             let rec: Record<RunBody> = read_record(&path)?;
+            if !same_point(&names, &rec.body.parameters, &p.values) {
+                // Left by an earlier design with other points: not a run of this one.
+                continue;
+            }
             if rec.body.state == RunState::Done {
                 if let Some(v) = &rec.body.values {
                     er.point_ids.push(p.id.clone());
@@ -188,6 +207,7 @@ pub fn load_runs(
                     er.outputs.push(v.clone());
                     er.value_names = rec.body.value_names.clone();
                     er.record_sha256.push(crate::record::sha256_file(&path)?);
+                    er.output_sha256.push(rec.body.outputs_sha256.clone());
                 }
             }
             all.push(rec.body);

@@ -18,7 +18,7 @@ mod validate;
 pub use data::{FieldData, FieldRow, Target};
 pub use error::{StudyError, StudyErrors};
 pub use locate::LineIndex;
-pub use spec::{Backend, SlurmSpec};
+pub use spec::{schema_json, Backend, SlurmSpec};
 pub use validate::{
     load, parse, CalibrationParams, DesignMethod, DesignParams, DesignSpace, Experiment,
     FileTemplate, HyperpriorChoice, KernelChoice, MeanChoice, Noise, OutputFormat, OutputSpec,

@@ -1,13 +1,19 @@
 //! The wire shape of `study.yaml`. Every struct denies unknown keys; defaults are
 //! documented on each field and in `docs/study.md`.
+//!
+//! The same types give the study file's JSON Schema ([`schema_json`], `assay schema`):
+//! derived for the plain structs, written by hand for [`PriorSpec`] and [`NoiseSpec`],
+//! whose readers take a YAML value apart themselves.
 
+use schemars::{json_schema, JsonSchema, Schema, SchemaGenerator};
 use serde::de::Error as _;
 use serde::{Deserialize, Deserializer};
 use serde_yaml::Value;
 use std::collections::BTreeMap;
 
-/// The whole study file.
-#[derive(Debug, Clone, Deserialize)]
+/// An assay study file: the constants to calibrate, the simulator, the experiments with
+/// their field data, and the settings of each stage (see docs/study.md).
+#[derive(Debug, Clone, Deserialize, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct StudySpec {
     /// Campaign folder name, `[A-Za-z0-9._-]+`.
@@ -18,17 +24,21 @@ pub struct StudySpec {
     pub simulator: SimulatorSpec,
     /// Test set-ups, each with field data; one run per design point per experiment.
     pub experiments: Vec<ExperimentSpec>,
+    /// Where the simulator runs: the design of the parameter box.
     #[serde(default)]
     pub design: DesignSpec,
+    /// How runs are executed.
     #[serde(default)]
     pub execution: ExecutionSpec,
+    /// The Gaussian-process surrogate.
     #[serde(default)]
     pub surrogate: SurrogateSpec,
+    /// The MCMC sampler.
     #[serde(default)]
     pub calibration: CalibrationSpec,
 }
 
-#[derive(Debug, Clone, Deserialize)]
+#[derive(Debug, Clone, Deserialize, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct ParameterSpec {
     pub name: String,
@@ -56,7 +66,7 @@ pub enum PriorSpec {
     },
 }
 
-#[derive(Debug, Clone, Deserialize)]
+#[derive(Debug, Clone, Deserialize, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct SimulatorSpec {
     /// argv; the first element is the program. Never run through a shell.
@@ -79,7 +89,7 @@ fn default_timeout() -> f64 {
     3600.0
 }
 
-#[derive(Debug, Clone, Deserialize)]
+#[derive(Debug, Clone, Deserialize, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct FileSpec {
     /// Template path, relative to the study file.
@@ -88,7 +98,7 @@ pub struct FileSpec {
     pub to: String,
 }
 
-#[derive(Debug, Clone, Deserialize)]
+#[derive(Debug, Clone, Deserialize, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct OutputSpecWire {
     /// Output file, relative to the run folder.
@@ -103,7 +113,7 @@ pub struct OutputSpecWire {
     pub y: Vec<String>,
 }
 
-#[derive(Debug, Clone, Copy, Default, Deserialize, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, Default, Deserialize, PartialEq, Eq, JsonSchema)]
 #[serde(rename_all = "lowercase")]
 pub enum OutputFormatWire {
     #[default]
@@ -112,7 +122,7 @@ pub enum OutputFormatWire {
     Json,
 }
 
-#[derive(Debug, Clone, Deserialize)]
+#[derive(Debug, Clone, Deserialize, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct ExperimentSpec {
     /// `[A-Za-z0-9._-]+`, unique; also a folder name.
@@ -125,7 +135,7 @@ pub struct ExperimentSpec {
     pub noise: NoiseSpec,
 }
 
-#[derive(Debug, Clone, Deserialize, PartialEq)]
+#[derive(Debug, Clone, Deserialize, PartialEq, JsonSchema)]
 #[serde(untagged)]
 pub enum SettingValue {
     Number(f64),
@@ -143,7 +153,7 @@ pub enum NoiseSpec {
     Unknown { shape: f64, scale: f64 },
 }
 
-#[derive(Debug, Clone, Deserialize)]
+#[derive(Debug, Clone, Deserialize, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct DesignSpec {
     /// Default `lhs`.
@@ -175,7 +185,7 @@ fn default_seed() -> u64 {
     1
 }
 
-#[derive(Debug, Clone, Copy, Default, Deserialize, serde::Serialize, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, Default, Deserialize, serde::Serialize, PartialEq, Eq, JsonSchema)]
 #[serde(rename_all = "lowercase")]
 pub enum DesignMethod {
     /// Maximin Latin hypercube.
@@ -188,7 +198,7 @@ pub enum DesignMethod {
 }
 
 /// Where the design spreads its points evenly.
-#[derive(Debug, Clone, Copy, Default, Deserialize, serde::Serialize, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, Default, Deserialize, serde::Serialize, PartialEq, Eq, JsonSchema)]
 #[serde(rename_all = "lowercase")]
 pub enum DesignSpace {
     /// Evenly over the parameter box.
@@ -199,7 +209,7 @@ pub enum DesignSpace {
     Prior,
 }
 
-#[derive(Debug, Clone, Default, Deserialize)]
+#[derive(Debug, Clone, Default, Deserialize, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct ExecutionSpec {
     /// Default `local`.
@@ -213,7 +223,7 @@ pub struct ExecutionSpec {
     pub slurm: SlurmSpec,
 }
 
-#[derive(Debug, Clone, Copy, Default, Deserialize, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, Default, Deserialize, PartialEq, Eq, JsonSchema)]
 #[serde(rename_all = "lowercase")]
 pub enum Backend {
     /// Child processes on this machine.
@@ -224,7 +234,7 @@ pub enum Backend {
 }
 
 /// `execution.slurm`: how runs are handed to Slurm. Every key is optional.
-#[derive(Debug, Clone, Default, Deserialize, PartialEq)]
+#[derive(Debug, Clone, Default, Deserialize, PartialEq, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct SlurmSpec {
     /// `--partition`; default: the cluster's default partition.
@@ -255,13 +265,14 @@ pub struct SlurmSpec {
     /// Shell lines run on the node before the simulator (module loads, environment):
     /// a list of lines or one block of text.
     #[serde(default, deserialize_with = "lines")]
+    #[schemars(schema_with = "lines_schema")]
     pub prelude: Vec<String>,
     /// Seconds between two looks at the queue. Default 5.
     #[serde(default)]
     pub poll_s: Option<f64>,
 }
 
-#[derive(Debug, Clone, Deserialize)]
+#[derive(Debug, Clone, Deserialize, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct SurrogateSpec {
     /// Default `matern52`.
@@ -305,7 +316,7 @@ impl Default for SurrogateSpec {
 }
 
 /// `surrogate.hyperprior`.
-#[derive(Debug, Clone, Copy, Default, Deserialize, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, Default, Deserialize, PartialEq, Eq, JsonSchema)]
 #[serde(rename_all = "lowercase")]
 pub enum HyperpriorChoice {
     /// Maximum likelihood.
@@ -315,7 +326,7 @@ pub enum HyperpriorChoice {
     Lognormal,
 }
 
-#[derive(Debug, Clone, Copy, Default, Deserialize, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, Default, Deserialize, PartialEq, Eq, JsonSchema)]
 pub enum KernelChoice {
     #[default]
     #[serde(rename = "matern52")]
@@ -326,7 +337,7 @@ pub enum KernelChoice {
     SquaredExponential,
 }
 
-#[derive(Debug, Clone, Copy, Default, Deserialize, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, Default, Deserialize, PartialEq, Eq, JsonSchema)]
 #[serde(rename_all = "lowercase")]
 pub enum MeanChoice {
     #[default]
@@ -334,7 +345,7 @@ pub enum MeanChoice {
     Linear,
 }
 
-#[derive(Debug, Clone, Deserialize)]
+#[derive(Debug, Clone, Deserialize, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct CalibrationSpec {
     /// Default 4.
@@ -385,7 +396,7 @@ impl Default for CalibrationSpec {
 }
 
 /// The MCMC algorithm.
-#[derive(Debug, Clone, Copy, Default, Deserialize, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, Default, Deserialize, PartialEq, Eq, JsonSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum SamplerChoice {
     /// Random-walk Metropolis with a proposal covariance learnt during warm-up
@@ -517,6 +528,103 @@ impl<'de> Deserialize<'de> for NoiseSpec {
         }
         .map_err(D::Error::custom)
     }
+}
+
+/// The schema of a tagged choice `{key: {fields…}}` with exactly one key.
+fn one_key_schema(key: &str, fields: &[&str], description: &str) -> serde_json::Value {
+    let props: serde_json::Map<String, serde_json::Value> = fields
+        .iter()
+        .map(|f| (f.to_string(), serde_json::json!({"type": "number"})))
+        .collect();
+    serde_json::json!({
+        "type": "object",
+        "description": description,
+        "properties": {
+            key: {
+                "type": "object",
+                "properties": props,
+                "required": fields,
+                "additionalProperties": false,
+            }
+        },
+        "required": [key],
+        "additionalProperties": false,
+    })
+}
+
+impl JsonSchema for PriorSpec {
+    fn schema_name() -> std::borrow::Cow<'static, str> {
+        "PriorSpec".into()
+    }
+
+    /// As [`PriorSpec`]'s reader: the text `uniform`, or a one-key mapping `normal`,
+    /// `lognormal` (numbers `mean`, `sd` / `mu`, `sigma`) or `uniform` (whose value the
+    /// reader ignores).
+    fn json_schema(_: &mut SchemaGenerator) -> Schema {
+        json_schema!({
+            "description": "Prior density, truncated to the range: `uniform` (default), `{normal: {mean, sd}}` or `{lognormal: {mu, sigma}}` (mu and sigma of ln x).",
+            "oneOf": [
+                {"const": "uniform"},
+                {
+                    "type": "object",
+                    "properties": {"uniform": true},
+                    "required": ["uniform"],
+                    "additionalProperties": false,
+                },
+                one_key_schema("normal", &["mean", "sd"], "Normal prior with this mean and standard deviation, truncated to the range."),
+                one_key_schema("lognormal", &["mu", "sigma"], "Lognormal prior: ln x is normal with mean mu and standard deviation sigma; truncated to the range."),
+            ]
+        })
+    }
+}
+
+impl JsonSchema for NoiseSpec {
+    fn schema_name() -> std::borrow::Cow<'static, str> {
+        "NoiseSpec".into()
+    }
+
+    /// As [`NoiseSpec`]'s reader: exactly one of `sd` (a number), `sd_column` (a
+    /// column name) or `unknown` (numbers `shape`, `scale`).
+    fn json_schema(_: &mut SchemaGenerator) -> Schema {
+        json_schema!({
+            "description": "Measurement noise of the field data: `{sd: v}`, `{sd_column: NAME}` or `{unknown: {shape: a, scale: b}}` (inverse-gamma prior on the variance).",
+            "oneOf": [
+                {
+                    "type": "object",
+                    "description": "Known standard deviation, in the output's unit.",
+                    "properties": {"sd": {"type": "number"}},
+                    "required": ["sd"],
+                    "additionalProperties": false,
+                },
+                {
+                    "type": "object",
+                    "description": "Known standard deviation per row, from this column of the data file.",
+                    "properties": {"sd_column": {"type": "string"}},
+                    "required": ["sd_column"],
+                    "additionalProperties": false,
+                },
+                one_key_schema("unknown", &["shape", "scale"], "Unknown variance with an inverse-gamma prior (shape a, scale b), estimated with the parameters."),
+            ]
+        })
+    }
+}
+
+/// The JSON Schema (draft 2020-12) of the study file, pretty-printed.
+pub fn schema_json() -> String {
+    let mut schema = schemars::schema_for!(StudySpec);
+    schema.insert("title".into(), "assay study file".into());
+    serde_json::to_string_pretty(&schema).expect("a schema serialises")
+}
+
+/// The schema of what [`lines`] reads.
+fn lines_schema(_: &mut SchemaGenerator) -> Schema {
+    json_schema!({
+        "description": "Shell lines run on the node before the simulator: a list of lines or one block of text.",
+        "oneOf": [
+            {"type": "string"},
+            {"type": "array", "items": {"type": "string"}},
+        ]
+    })
 }
 
 /// A list of lines, or one block of text split into lines.

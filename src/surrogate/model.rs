@@ -284,34 +284,13 @@ impl ExperimentModel {
         components: Vec<ComponentModel>,
     ) -> Self {
         let basis_out = basis.vectors_in_output_units();
-        let n = outputs.len();
-        let k = components.len();
-        // Leave-one-out of every weight, carried to the outputs through the basis.
-        let w = basis.weights(outputs);
-        let mut loo_mean = Array2::zeros((n, k));
-        let mut loo_var = Array2::zeros((n, k));
-        for (c, comp) in components.iter().enumerate() {
-            let (m, v) = comp.gp.leave_one_out(w.column(c));
-            loo_mean.column_mut(c).assign(&m);
-            loo_var.column_mut(c).assign(&v);
-        }
+        let loo = loo_through_basis(&basis, &basis_out, &components, outputs);
         let out_models: Vec<OutputModel> = names
             .iter()
+            .zip(loo)
             .enumerate()
-            .map(|(j, name)| {
-                let col: Vec<f64> = outputs.iter().map(|r| r[j]).collect();
+            .map(|(j, (name, (col, pred, psd)))| {
                 let (mean, sd) = mean_sd(&col);
-                let (pred, psd): (Vec<f64>, Vec<f64>) = (0..n)
-                    .map(|i| {
-                        let mut m = basis.mean[j];
-                        let mut v = basis.discarded[j];
-                        for c in 0..k {
-                            m += basis_out[[j, c]] * loo_mean[[i, c]];
-                            v += basis_out[[j, c]].powi(2) * loo_var[[i, c]];
-                        }
-                        (m, v.sqrt())
-                    })
-                    .unzip();
                 OutputModel {
                     name: name.clone(),
                     y_mean: mean,
@@ -335,6 +314,58 @@ impl ExperimentModel {
             validation,
             holdout: None,
         }
+    }
+}
+
+/// Leave-one-out of every component weight (R&W §5.4.2), carried to the outputs through
+/// the basis, plus the left-out variance: per output value, (observed, LOO mean, LOO sd)
+/// with runs in training order.
+fn loo_through_basis(
+    basis: &Basis,
+    basis_out: &Array2<f64>,
+    components: &[ComponentModel],
+    outputs: &[Vec<f64>],
+) -> Vec<(Vec<f64>, Vec<f64>, Vec<f64>)> {
+    let n = outputs.len();
+    let k = components.len();
+    let w = basis.weights(outputs);
+    let mut loo_mean = Array2::zeros((n, k));
+    let mut loo_var = Array2::zeros((n, k));
+    for (c, comp) in components.iter().enumerate() {
+        let (m, v) = comp.gp.leave_one_out(w.column(c));
+        loo_mean.column_mut(c).assign(&m);
+        loo_var.column_mut(c).assign(&v);
+    }
+    (0..basis.mean.len())
+        .map(|j| {
+            let col: Vec<f64> = outputs.iter().map(|r| r[j]).collect();
+            let (pred, psd): (Vec<f64>, Vec<f64>) = (0..n)
+                .map(|i| {
+                    let mut m = basis.mean[j];
+                    let mut v = basis.discarded[j];
+                    for c in 0..k {
+                        m += basis_out[[j, c]] * loo_mean[[i, c]];
+                        v += basis_out[[j, c]].powi(2) * loo_var[[i, c]];
+                    }
+                    (m, v.sqrt())
+                })
+                .unzip();
+            (col, pred, psd)
+        })
+        .collect()
+}
+
+impl ExperimentModel {
+    /// Leave-one-out predictions of every output value at every training run, in the
+    /// outputs' units: per output, (observed, LOO mean, LOO sd), runs in `point_ids`
+    /// order. The same numbers the validation summaries are made from.
+    pub fn leave_one_out(&self) -> Vec<(Vec<f64>, Vec<f64>, Vec<f64>)> {
+        loo_through_basis(
+            &self.basis,
+            &self.basis_out,
+            &self.components,
+            &self.outputs_raw,
+        )
     }
 }
 

@@ -1,0 +1,331 @@
+//! The numbers behind the report's plots, from typed records: pure functions.
+
+use crate::calibrate::Emulator;
+use crate::study::{Experiment, Noise, Study};
+use crate::surrogate::ExperimentModel;
+
+/// Kept MCMC draws as read from `posterior-samples.csv`.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Samples {
+    /// The columns after `chain` and `draw`: parameters, noise sds, `log_posterior`.
+    pub columns: Vec<String>,
+    /// Per chain (in chain-number order), per draw, one value per column.
+    pub chains: Vec<Vec<Vec<f64>>>,
+}
+
+impl Samples {
+    /// Parse the text of `posterior-samples.csv` (`chain,draw,<columns…>`).
+    ///
+    /// # Errors
+    /// A missing `chain`/`draw` header, a malformed row or a non-number, with its line.
+    pub fn parse_csv(text: &str) -> Result<Self, String> {
+        let mut r = csv::ReaderBuilder::new().from_reader(text.as_bytes());
+        let header = r.headers().map_err(|e| format!("line 1: {e}"))?.clone();
+        if header.len() < 3 || &header[0] != "chain" || &header[1] != "draw" {
+            return Err("line 1: expected a header `chain,draw,…`".into());
+        }
+        let columns: Vec<String> = header.iter().skip(2).map(str::to_string).collect();
+        let mut chains: Vec<(usize, Vec<Vec<f64>>)> = Vec::new();
+        for (i, rec) in r.records().enumerate() {
+            let line = i + 2;
+            let rec = rec.map_err(|e| format!("line {line}: {e}"))?;
+            let chain: usize = rec[0]
+                .parse()
+                .map_err(|_| format!("line {line}: chain `{}` is not a number", &rec[0]))?;
+            let row: Result<Vec<f64>, String> = rec
+                .iter()
+                .skip(2)
+                .map(|v| {
+                    v.parse::<f64>()
+                        .map_err(|_| format!("line {line}: `{v}` is not a number"))
+                })
+                .collect();
+            let row = row?;
+            match chains.iter_mut().find(|(c, _)| *c == chain) {
+                Some((_, rows)) => rows.push(row),
+                None => chains.push((chain, vec![row])),
+            }
+        }
+        chains.sort_by_key(|(c, _)| *c);
+        Ok(Self {
+            columns,
+            chains: chains.into_iter().map(|(_, rows)| rows).collect(),
+        })
+    }
+
+    pub fn column(&self, name: &str) -> Option<usize> {
+        self.columns.iter().position(|c| c == name)
+    }
+
+    /// Column `j` of every chain, chains one after the other.
+    pub fn pooled(&self, j: usize) -> Vec<f64> {
+        self.chains
+            .iter()
+            .flat_map(|c| c.iter().map(move |r| r[j]))
+            .collect()
+    }
+
+    /// Column `j` of each chain.
+    pub fn per_chain(&self, j: usize) -> Vec<Vec<f64>> {
+        self.chains
+            .iter()
+            .map(|c| c.iter().map(|r| r[j]).collect())
+            .collect()
+    }
+
+    pub fn n_draws(&self) -> usize {
+        self.chains.iter().map(Vec::len).sum()
+    }
+
+    /// At most `max` draws spread evenly over all chains (every k-th pooled draw), each
+    /// as its full row.
+    pub fn thinned(&self, max: usize) -> Vec<&[f64]> {
+        let n = self.n_draws();
+        let step = n.div_ceil(max.max(1)).max(1);
+        self.chains
+            .iter()
+            .flat_map(|c| c.iter())
+            .step_by(step)
+            .map(Vec::as_slice)
+            .collect()
+    }
+}
+
+/// Leave-one-out predictions of one output value at the training runs.
+#[derive(Debug, Clone, PartialEq)]
+pub struct LooOutput {
+    pub name: String,
+    pub observed: Vec<f64>,
+    pub mean: Vec<f64>,
+    pub sd: Vec<f64>,
+}
+
+/// Leave-one-out predictions of every output value of one experiment.
+pub fn loo_of(model: &ExperimentModel) -> Vec<LooOutput> {
+    model
+        .leave_one_out()
+        .into_iter()
+        .zip(&model.outputs)
+        .map(|((observed, mean, sd), o)| LooOutput {
+            name: o.name.clone(),
+            observed,
+            mean,
+            sd,
+        })
+        .collect()
+}
+
+/// The posterior predictive of one output value (a quantity at one station).
+#[derive(Debug, Clone, PartialEq)]
+pub struct BandPoint {
+    /// The station (curve x), or `None` for a scalar output.
+    pub x: Option<f64>,
+    /// E(μ(θ)) over the posterior draws.
+    pub mean: f64,
+    /// √(E(s²(θ)) + Var(μ(θ))): surrogate and parameter uncertainty.
+    pub sd_model: f64,
+    /// √(sd_model² + E(σ²)): plus measurement noise (a new measurement's spread).
+    pub sd_total: f64,
+    /// The field measurements (replicates) of this output value.
+    pub observed: Vec<f64>,
+}
+
+/// Posterior predictive bands of one output quantity of one experiment.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PredictiveQuantity {
+    pub experiment: String,
+    pub quantity: String,
+    pub points: Vec<BandPoint>,
+}
+
+/// Posterior predictive of every output value of experiment `e`, from the surrogate at
+/// the given posterior draws, by the law of total variance over the draws.
+///
+/// # Formula
+/// With surrogate mean μ(θ) and variance s²(θ) at each draw θ, and noise variance σ²:
+/// mean = E(μ), sd_model² = E(s²) + Var(μ), sd_total² = sd_model² + E(σ²) (expectations
+/// over the draws; Var with divisor n). σ² is the study's known noise (per output value,
+/// the mean of its replicates' sd²) or, for unknown noise, the drawn σ² of each draw.
+///
+/// `model` is the experiment's surrogate with `n_outputs` output values; `draws` are
+/// parameter vectors; `noise_sd` the draws' noise sds for unknown noise (same length as
+/// `draws`), else `None`. Returns `None` when the surrogate's outputs do not match the
+/// field data (a stale surrogate) or there are no draws.
+pub fn predictive(
+    study: &Study,
+    e: &Experiment,
+    model: &dyn Emulator,
+    n_outputs: usize,
+    draws: &[Vec<f64>],
+    noise_sd: Option<&[f64]>,
+) -> Option<Vec<PredictiveQuantity>> {
+    let targets = e.data.targets(study.simulator.output.y.len());
+    if targets.len() != n_outputs || draws.is_empty() {
+        return None;
+    }
+    let n = draws.len() as f64;
+    let k = targets.len();
+    let (mut s_m, mut s_m2, mut s_v) = (vec![0.0; k], vec![0.0; k], vec![0.0; k]);
+    for theta in draws {
+        let (m, v) = model.predict(theta);
+        for i in 0..k {
+            s_m[i] += m[i];
+            s_m2[i] += m[i] * m[i];
+            s_v[i] += v[i];
+        }
+    }
+    let drawn_noise_var = noise_sd.map(|s| s.iter().map(|v| v * v).sum::<f64>() / s.len() as f64);
+    let mut out: Vec<PredictiveQuantity> = study
+        .simulator
+        .output
+        .y
+        .iter()
+        .map(|q| PredictiveQuantity {
+            experiment: e.name.clone(),
+            quantity: q.clone(),
+            points: Vec::new(),
+        })
+        .collect();
+    for (i, t) in targets.iter().enumerate() {
+        let mean = s_m[i] / n;
+        let var_m = (s_m2[i] / n - mean * mean).max(0.0);
+        let sd_model = (s_v[i] / n + var_m).sqrt();
+        let noise_var = match (&e.noise, drawn_noise_var) {
+            (Noise::Unknown { .. }, Some(v)) => v,
+            (Noise::Unknown { .. }, None) => 0.0,
+            (Noise::Sd(sd), _) => sd * sd,
+            (Noise::Column(_), _) => {
+                let sds: Vec<f64> = t.sds.iter().flatten().copied().collect();
+                sds.iter().map(|s| s * s).sum::<f64>() / sds.len().max(1) as f64
+            }
+        };
+        out[t.quantity].points.push(BandPoint {
+            x: t.x,
+            mean,
+            sd_model,
+            sd_total: (sd_model * sd_model + noise_var).sqrt(),
+            observed: t.values.clone(),
+        });
+    }
+    Some(out)
+}
+
+/// Share of field measurements inside mean ± 2·sd_total, over every point of `qs`.
+pub fn band_coverage(qs: &[PredictiveQuantity]) -> Option<f64> {
+    let (mut inside, mut n) = (0usize, 0usize);
+    for p in qs.iter().flat_map(|q| &q.points) {
+        for y in &p.observed {
+            n += 1;
+            if (y - p.mean).abs() <= 2.0 * p.sd_total {
+                inside += 1;
+            }
+        }
+    }
+    (n > 0).then(|| inside as f64 / n as f64)
+}
+
+/// A prior density on a grid over the range, normalised to integrate to 1 (trapezoid
+/// rule), for overlaying on a marginal posterior.
+pub fn prior_curve(p: &crate::study::Parameter, n: usize) -> Vec<(f64, f64)> {
+    let n = n.max(2);
+    let xs: Vec<f64> = (0..n)
+        .map(|i| p.lo + (p.hi - p.lo) * i as f64 / (n - 1) as f64)
+        .collect();
+    let dens: Vec<f64> = xs
+        .iter()
+        .map(|&x| crate::calibrate::ln_prior(p, x).exp())
+        .collect();
+    let h = (p.hi - p.lo) / (n - 1) as f64;
+    let area: f64 = dens.windows(2).map(|w| 0.5 * h * (w[0] + w[1])).sum();
+    xs.into_iter()
+        .zip(dens)
+        .map(|(x, d)| (x, if area > 0.0 { d / area } else { 0.0 }))
+        .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn samples_parse_by_chain_and_thin_evenly() {
+        let text = "chain,draw,E,log_posterior\n0,0,1,-1\n0,1,2,-2\n1,0,3,-3\n1,1,4,-4\n";
+        let s = Samples::parse_csv(text).unwrap();
+        assert_eq!(s.columns, ["E", "log_posterior"]);
+        assert_eq!(s.per_chain(0), vec![vec![1.0, 2.0], vec![3.0, 4.0]]);
+        assert_eq!(s.pooled(1), vec![-1.0, -2.0, -3.0, -4.0]);
+        let t: Vec<f64> = s.thinned(2).iter().map(|r| r[0]).collect();
+        assert_eq!(t, vec![1.0, 3.0]);
+        assert!(Samples::parse_csv("a,b\n1,2\n").is_err());
+        let e = Samples::parse_csv("chain,draw,E\n0,0,x\n").unwrap_err();
+        assert!(e.contains("line 2"), "{e}");
+    }
+
+    /// μ(θ) = (θ, 2θ), s²(θ) = (0.01, 0.04): a surrogate whose moments are known.
+    struct Linear;
+    impl Emulator for Linear {
+        fn predict(&self, theta: &[f64]) -> (Vec<f64>, Vec<f64>) {
+            (vec![theta[0], 2.0 * theta[0]], vec![0.01, 0.04])
+        }
+    }
+
+    fn study(noise: &str) -> Study {
+        let text = format!(
+            "name: t\nparameters:\n  - {{name: a, range: [0, 5]}}\nsimulator:\n  command: [sim]\n  output: {{file: o.csv, x: x, y: [y]}}\nexperiments:\n  - {{name: e, data: d.csv, noise: {noise}}}\n"
+        );
+        let read = |_: &std::path::Path| Ok("x,y,s\n0,1.5,0.2\n1,2.0,0.4\n1,9.0,0.2\n".to_string());
+        crate::study::parse(
+            &text,
+            std::path::Path::new("s.yaml"),
+            std::path::Path::new("."),
+            &read,
+        )
+        .expect("a valid study")
+    }
+
+    #[test]
+    fn predictive_bands_follow_the_law_of_total_variance() {
+        // Draws θ = 1 and 3: E[μ] = (2, 4), Var[μ] = (1, 4) (divisor n), E[s²] = (0.01, 0.04).
+        let draws = vec![vec![1.0], vec![3.0]];
+        let s = study("{sd: 0.1}");
+        let q = predictive(&s, &s.experiments[0], &Linear, 2, &draws, None).unwrap();
+        assert_eq!(q.len(), 1);
+        let p = &q[0].points;
+        assert_eq!((p[0].x, p[1].x), (Some(0.0), Some(1.0)));
+        assert!((p[0].mean - 2.0).abs() < 1e-12 && (p[1].mean - 4.0).abs() < 1e-12);
+        assert!((p[0].sd_model - 1.01f64.sqrt()).abs() < 1e-12);
+        assert!((p[1].sd_model - 4.04f64.sqrt()).abs() < 1e-12);
+        assert!((p[0].sd_total - 1.02f64.sqrt()).abs() < 1e-12);
+        assert_eq!(p[1].observed, vec![2.0, 9.0]);
+        // Within 2·sd_total: 1.5 (|−0.5| ≤ 2.02) and 2.0 (|−2| ≤ 4.03); 9.0 is not.
+        assert!((band_coverage(&q).unwrap() - 2.0 / 3.0).abs() < 1e-12);
+
+        // Per-row sds: the mean of the replicates' sd² at each station.
+        let s = study("{sd_column: s}");
+        let q = predictive(&s, &s.experiments[0], &Linear, 2, &draws, None).unwrap();
+        let p = &q[0].points;
+        assert!((p[1].sd_total - (4.04f64 + (0.16 + 0.04) / 2.0).sqrt()).abs() < 1e-12);
+
+        // Unknown noise: the mean of the drawn σ².
+        let s = study("{unknown: {shape: 3, scale: 1}}");
+        let q = predictive(&s, &s.experiments[0], &Linear, 2, &draws, Some(&[0.1, 0.3])).unwrap();
+        assert!((q[0].points[0].sd_total - (1.01f64 + 0.05).sqrt()).abs() < 1e-12);
+
+        // A surrogate with other outputs than the data (stale) gives no bands.
+        assert!(predictive(&s, &s.experiments[0], &Linear, 3, &draws, None).is_none());
+    }
+
+    #[test]
+    fn uniform_prior_curve_is_flat_with_unit_area() {
+        let p = crate::study::Parameter {
+            name: "a".into(),
+            unit: None,
+            lo: 2.0,
+            hi: 6.0,
+            prior: crate::study::Prior::Uniform,
+        };
+        let c = prior_curve(&p, 11);
+        // A uniform density on [2, 6] is 1/4 everywhere (closed form).
+        assert!(c.iter().all(|(_, d)| (d - 0.25).abs() < 1e-12), "{c:?}");
+    }
+}
