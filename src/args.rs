@@ -61,6 +61,11 @@ pub enum Command {
         after_help = "Example:\n  assay calibrate models/cantilever/study.yaml\n\nCtrl-C stops sampling and keeps the draws made so far (recorded as interrupted)."
     )]
     Calibrate(StudyArg),
+    /// Posterior predictive checks against the field data (checks.yaml): does the calibrated model reproduce them?
+    #[command(
+        after_help = "Example:\n  assay check models/cantilever/study.yaml\n\nFor every field measurement: the predictive mean and 95 % interval from the posterior draws\n(surrogate mean and variance plus measurement noise), the standardised residual, the share\nof measurements inside their intervals against its binomial 99 % band, and the posterior\npredictive p-value of a chi-square discrepancy. Says plainly whether the calibration passes."
+    )]
+    Check(StudyArg),
     /// Surrogate mean and sd at given points (CSV to stdout or --out).
     #[command(
         after_help = "Example:\n  assay predict models/cantilever/study.yaml --at points.csv --out predictions.csv\n\nPOINTS.csv has a header naming every parameter; the output has the parameters, then\nEXP.Y.mean and EXP.Y.sd per experiment and output (curves: EXP.Y@X.mean, EXP.Y@X.sd)."

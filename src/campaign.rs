@@ -41,6 +41,10 @@ pub const SURROGATE_FILE: &str = "surrogate.yaml";
 pub const POSTERIOR_FILE: &str = "posterior.yaml";
 pub const SAMPLES_FILE: &str = "posterior-samples.csv";
 pub const REPORT_FILE: &str = "report.html";
+pub const CHECKS_FILE: &str = "checks.yaml";
+
+/// Posterior draws the predictive checks use at most (thinned evenly).
+pub const CHECK_DRAWS: usize = 2000;
 
 impl Campaign {
     pub fn new(study: Study, runs_root: &Path, command_line: Vec<String>) -> Self {
@@ -601,6 +605,91 @@ fn read_if_exists<T: serde::de::DeserializeOwned>(
         Ok(None)
     }
 }
+
+/// Posterior predictive checks of every experiment: `checks.yaml`.
+///
+/// # Errors
+/// No surrogate or posterior yet, unreadable samples, or samples without a column for a
+/// parameter of the study.
+pub fn check_stage(c: &Campaign) -> Result<crate::check::ChecksBody> {
+    use crate::check::{check_experiment, ChecksBody};
+    use crate::report::compute::Samples;
+    let surrogate: Record<SurrogateBody> = read_stage_record(c, SURROGATE_FILE, "fit")?;
+    let _posterior: Record<PosteriorBody> = read_stage_record(c, POSTERIOR_FILE, "calibrate")?;
+    let fitted = surrogate.body.to_fitted()?;
+    let path = c.path(SAMPLES_FILE);
+    let text = std::fs::read_to_string(&path)
+        .with_context(|| format!("cannot read {}", path.display()))?;
+    let samples =
+        Samples::parse_csv(&text).map_err(|e| InputError(format!("{}:{e}", path.display())))?;
+    let rows = samples.thinned(CHECK_DRAWS);
+    let cols = c
+        .study
+        .parameters
+        .iter()
+        .map(|p| {
+            samples.column(&p.name).ok_or_else(|| {
+                InputError(format!(
+                    "{} has no column `{}`: run `assay calibrate` again",
+                    path.display(),
+                    p.name
+                ))
+            })
+        })
+        .collect::<Result<Vec<usize>, InputError>>()?;
+    let draws: Vec<Vec<f64>> = rows
+        .iter()
+        .map(|r| cols.iter().map(|&j| r[j]).collect())
+        .collect();
+    let mut clock = c.clock();
+    c.hash_study_inputs(&mut clock)?;
+    clock.input_named(SURROGATE_FILE, &c.path(SURROGATE_FILE))?;
+    clock.input_named(POSTERIOR_FILE, &c.path(POSTERIOR_FILE))?;
+    clock.input_named(SAMPLES_FILE, &path)?;
+    let seed = c.study.calibration.seed;
+    clock.seed("checks", seed);
+    let mut experiments = Vec::new();
+    for (k, e) in c.study.experiments.iter().enumerate() {
+        let model = fitted
+            .experiments
+            .iter()
+            .find(|m| m.experiment == e.name)
+            .with_context(|| {
+                format!(
+                    "the surrogate has no experiment `{}`: run `assay fit` again",
+                    e.name
+                )
+            })?;
+        let noise: Option<Vec<f64>> = samples
+            .column(&format!("noise_sd.{}", e.name))
+            .map(|j| rows.iter().map(|r| r[j]).collect());
+        // Streams past those of the chains: the checks never share random numbers with
+        // the sampler.
+        let mut rng = crate::rng::stream(seed, CHECK_STREAM_BASE + k as u64);
+        let check = check_experiment(&c.study, e, model, &draws, noise.as_deref(), &mut rng)
+            .ok_or_else(|| {
+                InputError(format!(
+                    "the surrogate's outputs of `{}` do not match its field data: run `assay all` to bring the records up to date",
+                    e.name
+                ))
+            })?;
+        experiments.push(check);
+    }
+    let body = ChecksBody {
+        n_draws: draws.len(),
+        passes: experiments.iter().all(|e| e.passes),
+        experiments,
+        caution: crate::calibrate::CAUTION.to_string(),
+    };
+    write_record(
+        &c.path(CHECKS_FILE),
+        &Record::new("checks", clock.finish(), body.clone()),
+    )?;
+    Ok(body)
+}
+
+/// First random stream of the predictive checks (one per experiment).
+const CHECK_STREAM_BASE: u64 = 1 << 40;
 
 /// Write the HTML report to `out`: read the records that exist, recompute the
 /// leave-one-out predictions and the predictive bands, check the audit trail, render.

@@ -9,6 +9,7 @@
 pub mod audit;
 mod blas;
 pub mod calibrate;
+pub mod check;
 pub mod design;
 pub mod progress;
 pub mod record;

@@ -512,6 +512,43 @@ fn report_runs(s: &assay::runs::RunSummary, study: &Study) {
     }
 }
 
+fn print_checks(c: &Campaign, b: &assay::check::ChecksBody) {
+    out!(
+        "posterior predictive checks ({} draws) — {}",
+        b.n_draws,
+        c.path(campaign::CHECKS_FILE).display()
+    );
+    out!(
+        "  {:<16} {:>6} {:>11} {:>15} {:>9} {:>8}",
+        "experiment",
+        "n",
+        "coverage95",
+        "99% band",
+        "p (chi2)",
+        "max |z|"
+    );
+    for e in &b.experiments {
+        out!(
+            "  {:<16} {:>6} {:>11.3} {:>15} {:>9.3} {:>8.2}",
+            e.name,
+            e.n_measurements,
+            e.coverage95,
+            format!("[{:.3}, {:.3}]", e.coverage_band99[0], e.coverage_band99[1]),
+            e.ppp_chi2,
+            e.max_abs_z
+        );
+        for f in &e.findings {
+            out!("  warning: {}: {f}", e.name);
+        }
+    }
+    if b.passes {
+        out!("checks: pass — the calibrated model reproduces the field data within its stated uncertainty");
+    } else {
+        out!("checks: DO NOT PASS — the calibrated model does not reproduce the field data (see the warnings); look at the surrogate's validation, the noise and the data before using this posterior");
+    }
+    out!("  caution: {}", b.caution);
+}
+
 /// Run the command; `Ok(true)` when some runs failed (exit code 3).
 fn execute(cli: &Cli) -> Result<bool> {
     let command_line: Vec<String> = std::env::args().collect();
@@ -526,6 +563,7 @@ fn execute(cli: &Cli) -> Result<bool> {
         | Command::Status(a)
         | Command::Fit(a)
         | Command::Calibrate(a)
+        | Command::Check(a)
         | Command::Verify(a) => &a.study,
         Command::Design(a) => &a.study.study,
         Command::Predict(a) => &a.study.study,
@@ -616,6 +654,10 @@ fn execute(cli: &Cli) -> Result<bool> {
             print_posterior(&c)?;
         }
         Command::Schema => unreachable!("handled before the study is read"),
+        Command::Check(_) => {
+            let b = campaign::check_stage(&c)?;
+            print_checks(&c, &b);
+        }
         Command::Verify(_) => {
             let v = audit::verify(&c)?;
             let n = print_verification(&c, &v);
@@ -694,6 +736,8 @@ fn execute(cli: &Cli) -> Result<bool> {
                 out!("posterior: up to date");
             }
             print_posterior(&c)?;
+            let checks = campaign::check_stage(&c)?;
+            print_checks(&c, &checks);
             let report = c.path(campaign::REPORT_FILE);
             campaign::report_stage(&c, &report)?;
             out!("report: {}", report.display());

@@ -14,7 +14,7 @@ mod prior;
 mod sampler;
 mod summary;
 
-pub use diagnostics::{ess_bulk, ess_tail, rhat, Diagnostics};
+pub use diagnostics::{ess_bulk, ess_tail, quantile_sorted, rhat, Diagnostics};
 pub use likelihood::{ln_normal_low_rank, Emulator, ExperimentLikelihood};
 pub use posterior::LogPosterior;
 pub use prior::{ln_prior, InverseGamma, MvnPrior, Transform};

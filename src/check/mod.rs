@@ -1,0 +1,236 @@
+//! Posterior predictive checks: does the calibrated model reproduce the field data?
+//!
+//! Input: the study's experiments, their surrogates, posterior draws (parameters and,
+//! for unknown noise, the drawn noise sd) and a random stream.
+//! Output: [`ChecksBody`], the body of `checks.yaml`: per experiment and field
+//! measurement the predictive mean, the central 95 % predictive interval and the
+//! standardised residual; the coverage of the data with its binomial 99 % band; and the
+//! posterior predictive p-value of a χ² discrepancy (Gelman, Meng & Stern 1996).
+//!
+//! Pure: no files, no clock.
+//!
+//! # Method
+//! For each draw s (θ_s, σ_s²) and each measurement o of an output value i, the
+//! replicated measurement is y_rep,o ~ N(μ_i(θ_s), v_i(θ_s) + σ_o²), with μ, v the
+//! surrogate's mean and marginal variance. The 95 % interval of a measurement is the
+//! 2.5 % and 97.5 % quantiles of its replicated values over the draws; its standardised
+//! residual is (y − E y_rep)/sd(y_rep). The discrepancy is
+//! T(y, θ) = Σ_o (y_o − μ_i(θ))² / (v_i(θ) + σ_o²), and the p-value is the share of
+//! draws with T(y_rep, θ_s) ≥ T(y, θ_s) (Gelman, Meng & Stern 1996, eq. 2.4 and §2.3;
+//! BDA3 §6.3). Surrogate errors are taken independent across output values here (the
+//! marginal variances), a simplification of the calibration's likelihood when a
+//! principal-component basis correlates them.
+//!
+//! # References
+//! Gelman, A., Meng, X.-L. & Stern, H. (1996). Posterior predictive assessment of model
+//! fitness via realized discrepancies. Statistica Sinica 6, 733–807 *(equation number
+//! from memory)*.
+
+use crate::calibrate::Emulator;
+use crate::study::{Experiment, Noise, Study};
+use rand::Rng;
+use rand_distr::StandardNormal;
+use serde::{Deserialize, Serialize};
+use statrs::distribution::{Binomial, DiscreteCDF};
+
+/// The target coverage of the 95 % predictive intervals.
+pub const NOMINAL: f64 = 0.95;
+/// p-values below this or above 1 − this flag a misfit (common practice: the tails of
+/// the reference distribution at the 1 % level, two-sided).
+pub const PPP_ALPHA: f64 = 0.01;
+
+/// One field measurement against its posterior predictive distribution.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct MeasurementCheck {
+    pub quantity: String,
+    /// The curve's x (absent for scalar outputs).
+    pub x: Option<f64>,
+    pub observed: f64,
+    pub mean: f64,
+    pub lo95: f64,
+    pub hi95: f64,
+    /// (observed − mean) / sd of the replicated measurement.
+    pub z: f64,
+}
+
+/// Checks of one experiment.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ExperimentCheck {
+    pub name: String,
+    pub n_measurements: usize,
+    /// Share of measurements inside their 95 % predictive interval.
+    pub coverage95: f64,
+    /// Binomial 99 % band of that share when the model is right (n measurements, p 0.95).
+    pub coverage_band99: [f64; 2],
+    /// Posterior predictive p-value of the χ² discrepancy.
+    pub ppp_chi2: f64,
+    /// Mean over the draws of T(y, θ) and of T(y_rep, θ).
+    pub discrepancy_observed: f64,
+    pub discrepancy_replicated: f64,
+    /// Largest |z| of any measurement.
+    pub max_abs_z: f64,
+    pub passes: bool,
+    /// Why it does not pass (empty when it passes).
+    pub findings: Vec<String>,
+    pub measurements: Vec<MeasurementCheck>,
+}
+
+/// Body of `checks.yaml`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ChecksBody {
+    /// Posterior draws used (thinned evenly from the samples).
+    pub n_draws: usize,
+    pub experiments: Vec<ExperimentCheck>,
+    /// True when every experiment passes.
+    pub passes: bool,
+    pub caution: String,
+}
+
+/// The binomial 99 % band of the coverage of n measurements with probability 0.95:
+/// [q(0.005), q(0.995)] / n.
+pub fn coverage_band(n: usize) -> [f64; 2] {
+    if n == 0 {
+        return [0.0, 1.0];
+    }
+    let b = Binomial::new(NOMINAL, n as u64).expect("valid binomial");
+    [
+        b.inverse_cdf(0.005) as f64 / n as f64,
+        b.inverse_cdf(0.995) as f64 / n as f64,
+    ]
+}
+
+fn quantile(sorted: &[f64], p: f64) -> f64 {
+    crate::calibrate::quantile_sorted(sorted, p)
+}
+
+/// Check experiment `e` against its surrogate `model` at posterior `draws`.
+///
+/// `noise_sd` holds the drawn noise sd of each draw when the noise is estimated.
+/// Returns `None` when the surrogate's outputs do not match the field data, or there are
+/// no draws.
+pub fn check_experiment<R: Rng + ?Sized>(
+    study: &Study,
+    e: &Experiment,
+    model: &dyn Emulator,
+    draws: &[Vec<f64>],
+    noise_sd: Option<&[f64]>,
+    rng: &mut R,
+) -> Option<ExperimentCheck> {
+    let targets = e.data.targets(study.simulator.output.y.len());
+    if draws.is_empty() {
+        return None;
+    }
+    // One entry per measurement: (target index, observed value, known noise sd).
+    let mut obs: Vec<(usize, f64, Option<f64>)> = Vec::new();
+    for (i, t) in targets.iter().enumerate() {
+        for (k, y) in t.values.iter().enumerate() {
+            let sd = match &e.noise {
+                Noise::Sd(s) => Some(*s),
+                Noise::Column(_) => t.sds.get(k).copied().flatten(),
+                Noise::Unknown { .. } => None,
+            };
+            obs.push((i, *y, sd));
+        }
+    }
+    let mut reps: Vec<Vec<f64>> = vec![Vec::with_capacity(draws.len()); obs.len()];
+    let mut t_obs_sum = 0.0;
+    let mut t_rep_sum = 0.0;
+    let mut exceed = 0usize;
+    for (s, theta) in draws.iter().enumerate() {
+        let (m, v) = model.predict(theta);
+        if m.len() != targets.len() {
+            return None;
+        }
+        let mut t_obs = 0.0;
+        let mut t_rep = 0.0;
+        for (o, (i, y, sd)) in obs.iter().enumerate() {
+            let noise_var = match (sd, noise_sd) {
+                (Some(sd), _) => sd * sd,
+                (None, Some(ns)) => ns[s] * ns[s],
+                (None, None) => 0.0,
+            };
+            let var = (v[*i] + noise_var).max(f64::MIN_POSITIVE);
+            let eps: f64 = rng.sample(StandardNormal);
+            let y_rep = m[*i] + var.sqrt() * eps;
+            reps[o].push(y_rep);
+            t_obs += (y - m[*i]).powi(2) / var;
+            t_rep += (y_rep - m[*i]).powi(2) / var;
+        }
+        t_obs_sum += t_obs;
+        t_rep_sum += t_rep;
+        if t_rep >= t_obs {
+            exceed += 1;
+        }
+    }
+    let n_draws = draws.len() as f64;
+    let mut measurements = Vec::with_capacity(obs.len());
+    let mut inside = 0usize;
+    for ((i, y, _), mut r) in obs.iter().zip(reps) {
+        let mean = r.iter().sum::<f64>() / n_draws;
+        let sd = (r.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / n_draws).sqrt();
+        r.sort_by(f64::total_cmp);
+        let lo = quantile(&r, 0.025);
+        let hi = quantile(&r, 0.975);
+        if *y >= lo && *y <= hi {
+            inside += 1;
+        }
+        let t = &targets[*i];
+        measurements.push(MeasurementCheck {
+            quantity: study.simulator.output.y[t.quantity].clone(),
+            x: t.x,
+            observed: *y,
+            mean,
+            lo95: lo,
+            hi95: hi,
+            z: if sd > 0.0 { (y - mean) / sd } else { 0.0 },
+        });
+    }
+    let n = measurements.len();
+    let coverage95 = inside as f64 / n.max(1) as f64;
+    let band = coverage_band(n);
+    let ppp = exceed as f64 / n_draws;
+    let mut findings = Vec::new();
+    if coverage95 < band[0] || coverage95 > band[1] {
+        findings.push(format!(
+            "{:.3} of the measurements lie inside their 95 % predictive intervals, outside the binomial 99 % band [{:.3}, {:.3}]",
+            coverage95, band[0], band[1]
+        ));
+    }
+    if !(PPP_ALPHA..=1.0 - PPP_ALPHA).contains(&ppp) {
+        findings.push(format!(
+            "the posterior predictive p-value of the χ² discrepancy is {ppp:.3}: the data are {} than the calibrated model expects",
+            if ppp < PPP_ALPHA { "farther from the model" } else { "closer to the model" }
+        ));
+    }
+    Some(ExperimentCheck {
+        name: e.name.clone(),
+        n_measurements: n,
+        coverage95,
+        coverage_band99: band,
+        ppp_chi2: ppp,
+        discrepancy_observed: t_obs_sum / n_draws,
+        discrepancy_replicated: t_rep_sum / n_draws,
+        max_abs_z: measurements.iter().map(|m| m.z.abs()).fold(0.0, f64::max),
+        passes: findings.is_empty(),
+        findings,
+        measurements,
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Exact binomial quantiles for n = 20, p = 0.95 (P(X ≤ 17) = 0.0755, P(X ≤ 16) =
+    /// 0.0159, P(X ≤ 15) = 0.0026 — from the binomial pmf, computed by hand): the
+    /// 0.005 quantile is 16 and the 0.995 quantile is 20.
+    #[test]
+    fn coverage_band_is_the_binomial_99_percent_band() {
+        assert_eq!(coverage_band(20), [16.0 / 20.0, 1.0]);
+        let b = coverage_band(400);
+        assert!(
+            b[0] > 0.91 && b[0] < 0.93 && b[1] > 0.97 && b[1] < 0.98,
+            "{b:?}"
+        );
+    }
+}
