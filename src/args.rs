@@ -78,7 +78,7 @@ pub enum Command {
     Report(ReportArgs),
     /// Re-hash the records and the files they name; list stale stages (exit 0 only if all is consistent).
     #[command(
-        after_help = "Examples:\n  assay verify models/cantilever/study.yaml\n  assay --runs /scratch/me/campaigns verify study.yaml\n\nChecks every run's output against its run.yaml, the samples against posterior.yaml,\nand that each record still names the current study parts and earlier records (design →\nruns → surrogate → posterior). Prints one line per stage and one per problem.\nExit codes: 0 consistent; 1 a file is missing, altered or unreadable, or a stage is stale;\n2 bad study file."
+        after_help = "Examples:\n  assay verify models/cantilever/study.yaml\n  assay --runs /scratch/me/campaigns verify study.yaml\n\nChecks every run's output against its run.yaml, the samples against posterior.yaml,\nand that each record still names the current study parts and earlier records (design →\nruns → surrogate → posterior → checks). Prints one line per stage and one per problem.\nExit codes: 0 consistent; 1 a file is missing, altered or unreadable, or a stage is stale;\n2 bad study file."
     )]
     Verify(StudyArg),
     /// Every stage in order, reusing stages whose inputs are unchanged.

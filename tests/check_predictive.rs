@@ -150,3 +150,29 @@ fn data_the_model_cannot_produce_fail_the_checks() {
         }
     }
 }
+
+/// `assay verify` follows the chain to `checks.yaml`: clean after `all`; stale once the
+/// posterior it was made from is made again (`calibrate` rewrites `posterior.yaml`, whose
+/// provenance carries new times, so its sha256 changes).
+#[test]
+fn verify_covers_the_checks_record() {
+    let env = Env::new();
+    let study = env.write_minimal_study("ok");
+    env.assay(["all"]).arg(&study).assert().success();
+    let out = env.assay(["verify"]).arg(&study).output().unwrap();
+    let text = String::from_utf8_lossy(&out.stdout).into_owned();
+    assert!(out.status.success(), "{text}");
+    assert!(
+        text.lines()
+            .any(|l| l.trim_start().starts_with("checks") && l.contains("ok")),
+        "{text}"
+    );
+    env.assay(["calibrate"]).arg(&study).assert().success();
+    let out = env.assay(["verify"]).arg(&study).output().unwrap();
+    let text = String::from_utf8_lossy(&out.stdout).into_owned();
+    assert!(!out.status.success(), "{text}");
+    assert!(
+        text.contains("posterior.yaml changed since checks.yaml was made"),
+        "{text}"
+    );
+}

@@ -20,7 +20,8 @@ pub use parts::{changed_parts, design_parts, posterior_parts, surrogate_parts};
 
 use crate::calibrate::PosteriorBody;
 use crate::campaign::{
-    design_mismatch, Campaign, DESIGN_FILE, POSTERIOR_FILE, SAMPLES_FILE, SURROGATE_FILE,
+    design_mismatch, Campaign, CHECKS_FILE, DESIGN_FILE, POSTERIOR_FILE, SAMPLES_FILE,
+    SURROGATE_FILE,
 };
 use crate::design::{Design, DesignBody};
 use crate::record::{read_record, sha256_file, Provenance, Record};
@@ -37,6 +38,7 @@ pub enum Stage {
     Runs,
     Surrogate,
     Posterior,
+    Checks,
 }
 
 impl Stage {
@@ -46,6 +48,7 @@ impl Stage {
             Stage::Runs => "runs",
             Stage::Surrogate => "surrogate",
             Stage::Posterior => "posterior",
+            Stage::Checks => "checks",
         }
     }
 }
@@ -517,6 +520,54 @@ pub fn check_posterior(c: &Campaign, surrogate_stale: bool) -> anyhow::Result<St
     Ok(s)
 }
 
+/// Checks (`checks.yaml`): stale when the posterior is, or when the surrogate, the
+/// posterior record or its samples changed since the checks were made (the hashes in
+/// its provenance).
+///
+/// # Errors
+/// I/O other than missing files.
+pub fn check_checks(c: &Campaign, posterior_stale: bool) -> anyhow::Result<StageCheck> {
+    let mut s = StageCheck::new(Stage::Checks);
+    let path = c.path(CHECKS_FILE);
+    if !path.exists() {
+        s.freshness = Freshness::NotRun;
+        return Ok(s);
+    }
+    let rec: Record<crate::check::ChecksBody> = match read_record(&path) {
+        Ok(r) => r,
+        Err(e) => {
+            s.find(CHECKS_FILE.into(), Problem::Unreadable, format!("{e:#}"));
+            return Ok(s);
+        }
+    };
+    if posterior_stale {
+        s.stale("the posterior is stale".into());
+    }
+    for file in [SURROGATE_FILE, POSTERIOR_FILE, SAMPLES_FILE] {
+        match rec.provenance.inputs.get(file) {
+            None => s.find(
+                CHECKS_FILE.into(),
+                Problem::Unreadable,
+                format!("its inputs do not name {file}"),
+            ),
+            Some(want) => match hash_if_exists(&c.path(file))? {
+                None => s.find(
+                    file.into(),
+                    Problem::Missing,
+                    "named in checks.yaml's inputs".into(),
+                ),
+                Some(got) if got != *want => s.stale(format!(
+                    "{file} changed since checks.yaml was made (sha256 {}… recorded, {}… now)",
+                    short(want),
+                    short(&got)
+                )),
+                _ => {}
+            },
+        }
+    }
+    Ok(s)
+}
+
 /// How much [`verify`] reads.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Depth {
@@ -546,7 +597,8 @@ pub fn verify_to(c: &Campaign, depth: Depth) -> anyhow::Result<Verification> {
     let (runs, done) = check_runs(c, d.as_ref(), design.is_stale(), depth)?;
     let surrogate = check_surrogate(c, runs.is_stale(), &done)?;
     let posterior = check_posterior(c, surrogate.is_stale())?;
+    let checks = check_checks(c, posterior.is_stale())?;
     Ok(Verification {
-        stages: vec![design, runs, surrogate, posterior],
+        stages: vec![design, runs, surrogate, posterior, checks],
     })
 }
