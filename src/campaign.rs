@@ -611,7 +611,10 @@ fn read_if_exists<T: serde::de::DeserializeOwned>(
 /// # Errors
 /// No surrogate or posterior yet, unreadable samples, or samples without a column for a
 /// parameter of the study.
-pub fn check_stage(c: &Campaign) -> Result<crate::check::ChecksBody> {
+pub fn check_stage(
+    c: &Campaign,
+    confirm: Option<(RunOptions, &AtomicBool, &dyn Observer)>,
+) -> Result<crate::check::ChecksBody> {
     use crate::check::{check_experiment, ChecksBody};
     use crate::report::compute::Samples;
     let surrogate: Record<SurrogateBody> = read_stage_record(c, SURROGATE_FILE, "fit")?;
@@ -675,9 +678,28 @@ pub fn check_stage(c: &Campaign) -> Result<crate::check::ChecksBody> {
             })?;
         experiments.push(check);
     }
+    let confirmation = match confirm {
+        Some((options, stop, observer)) if c.study.confirmation_runs > 0 => {
+            let conf = confirm_runs(c, &fitted, &samples, &draws, options, stop, observer)?;
+            for (k, p) in conf.points.iter().enumerate() {
+                let _ = k;
+                for e in &c.study.experiments {
+                    let rp = runs::run_record_path(&c.dir, &p.id, &e.name);
+                    clock.input_named(&format!("runs/{}/{}/run.yaml", p.id, e.name), &rp)?;
+                }
+            }
+            Some(conf)
+        }
+        _ => None,
+    };
+    let passes = experiments.iter().all(|e| e.passes)
+        && confirmation
+            .as_ref()
+            .is_none_or(|f| f.experiments.iter().all(|e| e.passes));
     let body = ChecksBody {
         n_draws: draws.len(),
-        passes: experiments.iter().all(|e| e.passes),
+        passes,
+        confirmation,
         experiments,
         caution: crate::calibrate::CAUTION.to_string(),
     };
@@ -690,6 +712,140 @@ pub fn check_stage(c: &Campaign) -> Result<crate::check::ChecksBody> {
 
 /// First random stream of the predictive checks (one per experiment).
 const CHECK_STREAM_BASE: u64 = 1 << 40;
+/// Random stream that picks the confirmation draws.
+const CONFIRM_STREAM: u64 = (1 << 40) - 1;
+
+/// Run the simulator at `checks.confirmation_runs` posterior draws and the posterior
+/// mean (points already in the design are reused, new ones appended as a design round),
+/// then compare the surrogate `fitted` with the simulator there.
+fn confirm_runs(
+    c: &Campaign,
+    fitted: &FittedSurrogate,
+    samples: &crate::report::compute::Samples,
+    draws: &[Vec<f64>],
+    options: RunOptions,
+    stop: &AtomicBool,
+    observer: &dyn Observer,
+) -> Result<crate::check::Confirmation> {
+    use crate::check::{confirm_experiment, Confirmation, ConfirmationPoint};
+    let d = c.study.parameters.len();
+    let seed = c.study.calibration.seed;
+    let mut rng = crate::rng::stream(seed, CONFIRM_STREAM);
+    let n = c.study.confirmation_runs.min(draws.len());
+    let mut picks = rand::seq::index::sample(&mut rng, draws.len(), n).into_vec();
+    picks.sort_unstable();
+    let mut candidates: Vec<(String, Vec<f64>)> = Vec::with_capacity(n + 1);
+    let mean: Vec<f64> = (0..d)
+        .map(|j| draws.iter().map(|r| r[j]).sum::<f64>() / draws.len() as f64)
+        .collect();
+    candidates.push(("posterior mean".into(), mean));
+    for i in picks {
+        candidates.push((format!("draw {i}"), draws[i].clone()));
+    }
+    let design = load_design(c)?;
+    let mut points = Vec::new();
+    let mut new_values = Vec::new();
+    for (source, values) in candidates {
+        match design.points.iter().find(|p| p.values == values) {
+            Some(p) => points.push(ConfirmationPoint {
+                id: p.id.clone(),
+                source,
+                parameters: values,
+                reused: true,
+            }),
+            None => {
+                new_values.push(values.clone());
+                points.push(ConfirmationPoint {
+                    id: String::new(),
+                    source,
+                    parameters: values,
+                    reused: false,
+                });
+            }
+        }
+    }
+    let design = if new_values.is_empty() {
+        design
+    } else {
+        let stream = design.rounds.len().max(1) as u64;
+        let d2 = design::append(
+            &design,
+            &c.study.parameters,
+            &new_values,
+            design::Fill::PosteriorDraws,
+            seed,
+            stream,
+        )
+        .map_err(|e| InputError(format!("cannot add confirmation points: {e}")))?;
+        let mut clock = c.clock();
+        c.hash_study_inputs(&mut clock)?;
+        clock.study_parts(audit::design_parts(&c.study));
+        clock.seed("design", d2.seed);
+        write_record(
+            &c.path(DESIGN_FILE),
+            &Record::new("design", clock.finish(), DesignBody::from(&d2)),
+        )?;
+        d2
+    };
+    for p in points.iter_mut().filter(|p| !p.reused) {
+        p.id = design
+            .points
+            .iter()
+            .rev()
+            .find(|q| q.values == p.parameters)
+            .map(|q| q.id.clone())
+            .expect("appended");
+    }
+    let _ = runs::run_all(
+        &c.study,
+        &design,
+        &c.dir,
+        options,
+        &c.command_line,
+        stop,
+        observer,
+    )?;
+    let (set, _) = runs::load_runs(&c.study, &design, &c.dir)?;
+    let mut experiments = Vec::new();
+    for e in &c.study.experiments {
+        let model = fitted
+            .experiments
+            .iter()
+            .find(|m| m.experiment == e.name)
+            .with_context(|| format!("the surrogate has no experiment `{}`", e.name))?;
+        let er = set
+            .experiments
+            .iter()
+            .find(|r| r.experiment == e.name)
+            .context("runs of every experiment")?;
+        let done: Vec<(Vec<f64>, Vec<f64>)> = points
+            .iter()
+            .filter_map(|p| {
+                let k = er.point_ids.iter().position(|id| *id == p.id)?;
+                Some((er.inputs[k].clone(), er.outputs[k].clone()))
+            })
+            .collect();
+        let noise_sd = match &e.noise {
+            crate::study::Noise::Sd(s) => *s,
+            crate::study::Noise::Column(_) => {
+                let sds: Vec<f64> = e.data.rows.iter().filter_map(|r| r.sd).collect();
+                sds.iter().sum::<f64>() / sds.len().max(1) as f64
+            }
+            crate::study::Noise::Unknown { .. } => samples
+                .column(&format!("noise_sd.{}", e.name))
+                .map(|j| {
+                    let v = samples.pooled(j);
+                    v.iter().sum::<f64>() / v.len().max(1) as f64
+                })
+                .unwrap_or(f64::NAN),
+        };
+        experiments.push(confirm_experiment(&e.name, model, &done, noise_sd));
+    }
+    Ok(Confirmation {
+        points,
+        experiments,
+    })
+}
 
 /// Write the HTML report to `out`: read the records that exist, recompute the
 /// leave-one-out predictions and the predictive bands, check the audit trail, render.

@@ -541,6 +541,38 @@ fn print_checks(c: &Campaign, b: &assay::check::ChecksBody) {
             out!("  warning: {}: {f}", e.name);
         }
     }
+    if let Some(conf) = &b.confirmation {
+        let reused = conf.points.iter().filter(|p| p.reused).count();
+        out!(
+            "confirmation runs at {} points ({} reused): simulator against surrogate",
+            conf.points.len(),
+            reused
+        );
+        out!(
+            "  {:<16} {:>6} {:>12} {:>12} {:>9} {:>8}",
+            "experiment",
+            "runs",
+            "rmse",
+            "rmse/noise",
+            "inside95",
+            "max |z|"
+        );
+        for e in &conf.experiments {
+            out!(
+                "  {:<16} {:>6} {:>12} {:>12.3} {:>9.3} {:>8.2}",
+                e.name,
+                e.n_runs,
+                sig(e.rmse, 4),
+                e.rmse_over_noise,
+                e.inside95,
+                e.max_abs_z
+            );
+            for f in &e.findings {
+                out!("  warning: {}: {f}", e.name);
+            }
+        }
+        out!("  the confirmation runs are training data now: `assay all` fits the surrogate again with them");
+    }
     if b.passes {
         out!("checks: pass — the calibrated model reproduces the field data within its stated uncertainty");
     } else {
@@ -655,7 +687,17 @@ fn execute(cli: &Cli) -> Result<bool> {
         }
         Command::Schema => unreachable!("handled before the study is read"),
         Command::Check(_) => {
-            let b = campaign::check_stage(&c)?;
+            let b = if c.study.confirmation_runs > 0 {
+                let _lock = campaign::lock(&c)?;
+                interruptible(|| {
+                    campaign::check_stage(
+                        &c,
+                        Some((plan::study_run_options(&c.study), stop, obs.as_ref())),
+                    )
+                })?
+            } else {
+                campaign::check_stage(&c, None)?
+            };
             print_checks(&c, &b);
         }
         Command::Verify(_) => {
@@ -736,7 +778,9 @@ fn execute(cli: &Cli) -> Result<bool> {
                 out!("posterior: up to date");
             }
             print_posterior(&c)?;
-            let checks = campaign::check_stage(&c)?;
+            // Confirmation runs only by `assay check`: here they would make the surrogate
+            // stale again at every `all`.
+            let checks = campaign::check_stage(&c, None)?;
             print_checks(&c, &checks);
             let report = c.path(campaign::REPORT_FILE);
             campaign::report_stage(&c, &report)?;

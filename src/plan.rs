@@ -35,3 +35,18 @@ pub fn jobs(args: &RunArgs, study: &Study) -> usize {
                 .unwrap_or(1)
         })
 }
+
+/// Options of runs started by a stage other than `run` (confirmation runs of `check`):
+/// the study's backend and jobs, never `--rerun` or `--detach`.
+pub fn study_run_options(study: &Study) -> RunOptions {
+    RunOptions {
+        jobs: study.jobs.unwrap_or_else(|| {
+            std::thread::available_parallelism()
+                .map(|n| n.get())
+                .unwrap_or(1)
+        }),
+        rerun: false,
+        backend: study.backend,
+        detach: false,
+    }
+}

@@ -176,3 +176,86 @@ fn verify_covers_the_checks_record() {
         "{text}"
     );
 }
+
+#[derive(Debug, Deserialize)]
+struct ConfPoint {
+    id: String,
+    reused: bool,
+}
+
+#[derive(Debug, Deserialize)]
+struct ConfExperiment {
+    n_runs: usize,
+    rmse_over_noise: f64,
+    passes: bool,
+}
+
+#[derive(Debug, Deserialize)]
+struct Confirmation {
+    points: Vec<ConfPoint>,
+    experiments: Vec<ConfExperiment>,
+}
+
+#[derive(Debug, Deserialize)]
+struct ChecksWithConfirmation {
+    confirmation: Confirmation,
+}
+
+/// Confirmation runs: the simulator runs at 3 posterior draws and the posterior mean
+/// through the run manager, as a new design round; a second `check` reuses the same
+/// run folders; the runs make the surrogate stale, and `all` fits it again with them.
+/// On a straight-line simulator with a linear-trend surrogate the surrogate's error
+/// there is far below the noise sd (0.1).
+#[test]
+fn confirmation_runs_are_stored_reused_and_become_training_data() {
+    let env = Env::new();
+    let text = format!(
+        "{}checks: {{confirmation_runs: 3}}\nsurrogate: {{mean: linear}}\n",
+        env.minimal_study("ok")
+    );
+    let study = env.write_study_text(&text);
+    env.assay(["all"]).arg(&study).assert().success();
+    let read = || -> Confirmation {
+        let text = env.read("runs/tsim/checks.yaml");
+        serde_yaml::from_str::<ChecksWithConfirmation>(&text)
+            .unwrap_or_else(|e| panic!("{e}\n{text}"))
+            .confirmation
+    };
+    // `all` runs no confirmation (that would make the surrogate stale at every `all`).
+    assert!(!env.read("runs/tsim/checks.yaml").contains("confirmation:"));
+    env.assay(["check"]).arg(&study).assert().success();
+    let first = read();
+    assert_eq!(first.points.len(), 4, "3 draws and the posterior mean");
+    assert!(first.points.iter().all(|p| !p.reused));
+    for p in &first.points {
+        assert!(env.run_record(&p.id).exists(), "{} has a run record", p.id);
+        assert!(env
+            .read(&format!("runs/tsim/runs/{}/bench/run.yaml", p.id))
+            .contains("state: done"));
+    }
+    let e = &first.experiments[0];
+    assert_eq!(e.n_runs, 4);
+    assert!(e.rmse_over_noise < 0.5 && e.passes, "{e:?}");
+    let design = env.read("runs/tsim/design.yaml");
+    assert!(design.contains("fill: posterior-draws"), "{design}");
+
+    env.assay(["check"]).arg(&study).assert().success();
+    let second = read();
+    assert!(second.points.iter().all(|p| p.reused));
+    let ids = |c: &Confirmation| c.points.iter().map(|p| p.id.clone()).collect::<Vec<_>>();
+    assert_eq!(ids(&first), ids(&second));
+    assert_eq!(
+        env.read("runs/tsim/design.yaml"),
+        design,
+        "no new points the second time"
+    );
+
+    let out = env.assay(["verify"]).arg(&study).output().unwrap();
+    let text = String::from_utf8_lossy(&out.stdout).into_owned();
+    assert!(
+        !out.status.success() && text.contains("not in the surrogate"),
+        "{text}"
+    );
+    env.assay(["all"]).arg(&study).assert().success();
+    env.assay(["verify"]).arg(&study).assert().success();
+}

@@ -75,12 +75,128 @@ pub struct ExperimentCheck {
     pub measurements: Vec<MeasurementCheck>,
 }
 
+/// A confirmation point: a posterior draw or the posterior mean, run with the simulator.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ConfirmationPoint {
+    /// Design point id (an existing one when the same values were run before).
+    pub id: String,
+    /// `posterior mean` or `draw <row>` (row of the thinned samples).
+    pub source: String,
+    /// Parameter values, in the study's order.
+    pub parameters: Vec<f64>,
+    /// Whether the point was already in the design (its runs were reused).
+    pub reused: bool,
+}
+
+/// The surrogate against the simulator at the confirmation points, for one experiment.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ConfirmationExperiment {
+    pub name: String,
+    /// Confirmation runs of this experiment that finished (failed ones are left out).
+    pub n_runs: usize,
+    /// Root mean square of simulator − surrogate mean over every output value.
+    pub rmse: f64,
+    /// The measurement noise sd it is compared with (known sd, mean of the sd column,
+    /// or the posterior mean of an estimated one).
+    pub noise_sd: f64,
+    pub rmse_over_noise: f64,
+    /// Share of output values inside the surrogate's 95 % interval (mean ± 1.96 sd).
+    pub inside95: f64,
+    /// Largest |standardised error| (simulator − mean)/sd.
+    pub max_abs_z: f64,
+    pub passes: bool,
+    pub findings: Vec<String>,
+}
+
+/// Confirmation runs and how the surrogate did there.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Confirmation {
+    pub points: Vec<ConfirmationPoint>,
+    pub experiments: Vec<ConfirmationExperiment>,
+}
+
+/// Compare the surrogate `model` of experiment `name` with simulator outputs `runs`
+/// (parameter values and output vector per run).
+///
+/// Passes when the share inside the 95 % interval is not below the binomial 99 % band
+/// of its count and the RMSE does not exceed the noise sd (beyond it the surrogate's own
+/// error, not the measurement, limits the calibration: common practice to call for more
+/// runs near the posterior then).
+pub fn confirm_experiment(
+    name: &str,
+    model: &dyn Emulator,
+    runs: &[(Vec<f64>, Vec<f64>)],
+    noise_sd: f64,
+) -> ConfirmationExperiment {
+    let (mut se, mut n, mut inside, mut max_z) = (0.0, 0usize, 0usize, 0.0f64);
+    for (theta, y) in runs {
+        let (m, v) = model.predict(theta);
+        for ((y, m), v) in y.iter().zip(&m).zip(&v) {
+            let e = y - m;
+            se += e * e;
+            n += 1;
+            let z = if *v > 0.0 {
+                e / v.sqrt()
+            } else if e == 0.0 {
+                0.0
+            } else {
+                f64::INFINITY
+            };
+            max_z = max_z.max(z.abs());
+            if z.abs() <= 1.959_963_984_540_054 {
+                inside += 1;
+            }
+        }
+    }
+    let rmse = if n > 0 {
+        (se / n as f64).sqrt()
+    } else {
+        f64::NAN
+    };
+    let inside95 = if n > 0 {
+        inside as f64 / n as f64
+    } else {
+        f64::NAN
+    };
+    let mut findings = Vec::new();
+    if n == 0 {
+        findings.push("no confirmation run finished".into());
+    } else {
+        let band = coverage_band(n);
+        if inside95 < band[0] {
+            findings.push(format!(
+                "{inside95:.3} of the simulator's values lie inside the surrogate's 95 % intervals (binomial 99 % band from {:.3}): the surrogate understates its error near the posterior",
+                band[0]
+            ));
+        }
+        if rmse > noise_sd {
+            findings.push(format!(
+                "the surrogate's error near the posterior (RMSE {rmse:.4e}) exceeds the measurement noise sd ({noise_sd:.4e}): add runs there (refinement) and fit again"
+            ));
+        }
+    }
+    ConfirmationExperiment {
+        name: name.to_string(),
+        n_runs: runs.len(),
+        rmse,
+        noise_sd,
+        rmse_over_noise: rmse / noise_sd,
+        inside95,
+        max_abs_z: max_z,
+        passes: findings.is_empty(),
+        findings,
+    }
+}
+
 /// Body of `checks.yaml`.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct ChecksBody {
     /// Posterior draws used (thinned evenly from the samples).
     pub n_draws: usize,
     pub experiments: Vec<ExperimentCheck>,
+    /// Confirmation runs (`checks.confirmation_runs` > 0).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub confirmation: Option<Confirmation>,
     /// True when every experiment passes.
     pub passes: bool,
     pub caution: String,

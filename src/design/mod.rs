@@ -59,6 +59,10 @@ pub enum Fill {
     /// The next points of the design's own scrambled Sobol' sequence.
     #[serde(rename = "sobol-sequence")]
     SobolSequence,
+    /// Given points: posterior draws and the posterior mean, for confirmation runs
+    /// (`assay check`); `seed` and `stream` are those the draws were picked with.
+    #[serde(rename = "posterior-draws")]
+    PosteriorDraws,
 }
 
 /// One round of a design: the initial points, or points added later.
@@ -297,6 +301,73 @@ pub fn augment(design: &Design, params: &[Parameter], n_add: usize) -> Result<De
     });
     out.quality = Some(quality(concatenate![Axis(0), old, unit].view()));
     out.warnings = warnings;
+    Ok(out)
+}
+
+/// Append the given points (parameter values, in the design's parameter order) as a new
+/// round with `fill`, ids continuing after the largest existing one. Points must lie in
+/// the parameter box.
+///
+/// # Errors
+/// Parameters that differ from the design's, no points, or a point outside the box.
+pub fn append(
+    design: &Design,
+    params: &[Parameter],
+    values: &[Vec<f64>],
+    fill: Fill,
+    seed: u64,
+    stream: u64,
+) -> Result<Design, DesignError> {
+    if values.is_empty() {
+        return Err(DesignError::NothingToAdd);
+    }
+    let names: Vec<String> = params.iter().map(|p| p.name.clone()).collect();
+    if names != design.names {
+        return Err(DesignError::ParametersDiffer {
+            design: design.names.join(", "),
+            study: names.join(", "),
+        });
+    }
+    let first = design
+        .points
+        .iter()
+        .filter_map(|p| id_number(&p.id))
+        .max()
+        .unwrap_or(design.points.len());
+    let mut out = design.clone();
+    for (k, v) in values.iter().enumerate() {
+        for (x, p) in v.iter().zip(params) {
+            if !(p.lo..=p.hi).contains(x) {
+                return Err(DesignError::OutsideRange {
+                    id: point_id(first + k),
+                    name: p.name.clone(),
+                    value: *x,
+                    lo: p.lo,
+                    hi: p.hi,
+                });
+            }
+        }
+        out.points.push(DesignPoint {
+            id: point_id(first + k),
+            values: v.clone(),
+        });
+    }
+    if out.rounds.is_empty() {
+        out.rounds.push(Round::Initial {
+            method: design.method,
+            n: design.points.len(),
+            seed: design.seed,
+            search: None,
+        });
+    }
+    out.rounds.push(Round::Added {
+        n: values.len(),
+        fill,
+        seed,
+        stream,
+    });
+    out.quality = Some(quality(out.unit_points(params).view()));
+    out.warnings = Vec::new();
     Ok(out)
 }
 

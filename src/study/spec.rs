@@ -36,6 +36,19 @@ pub struct StudySpec {
     /// The MCMC sampler.
     #[serde(default)]
     pub calibration: CalibrationSpec,
+    /// Checks of the calibration (`assay check`).
+    #[serde(default)]
+    pub checks: ChecksSpec,
+}
+
+/// `checks`: what `assay check` does besides the posterior predictive checks.
+#[derive(Debug, Clone, Default, Deserialize, PartialEq, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct ChecksSpec {
+    /// Runs of the real simulator at this many posterior draws, plus one at the
+    /// posterior mean, compared with the surrogate there. Default 0 (none).
+    #[serde(default)]
+    pub confirmation_runs: usize,
 }
 
 #[derive(Debug, Clone, Deserialize, JsonSchema)]

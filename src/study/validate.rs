@@ -161,6 +161,8 @@ pub struct Study {
     pub slurm: SlurmSpec,
     pub surrogate: SurrogateParams,
     pub calibration: CalibrationParams,
+    /// `checks.confirmation_runs`: posterior draws to confirm with the simulator.
+    pub confirmation_runs: usize,
 }
 
 impl Study {
@@ -760,6 +762,7 @@ pub fn parse(
             holdout: spec.surrogate.holdout,
             hyperprior: spec.surrogate.hyperprior,
         },
+        confirmation_runs: spec.checks.confirmation_runs,
         calibration: CalibrationParams {
             chains: cal.chains,
             warmup: cal.warmup,

@@ -131,6 +131,8 @@ type Evaluation = (Vec<f64>, f64, Vec<f64>);
 struct Track {
     best: Option<(Vec<f64>, f64)>,
     n_factorisations: u64,
+    /// Calls of the objective, cached ones included.
+    n_calls: u64,
 }
 
 /// Factorisations allowed per start. argmin's More–Thuente line search has no iteration
@@ -139,8 +141,24 @@ struct Track {
 /// 50–500 factorisations on the example studies.
 pub const MAX_FACTORISATIONS: u64 = 3000;
 
+/// Calls of the objective per start, cached answers included (argmin asks for the cost
+/// and the gradient of a point separately, so a healthy search makes about two calls per
+/// factorisation).
+const MAX_CALLS: u64 = 4 * MAX_FACTORISATIONS;
+
 impl Objective {
     fn eval(&self, p: &[f64]) -> Result<(f64, Vec<f64>), SurrogateError> {
+        {
+            // Calls answered from the cache count too: a line search that keeps asking
+            // for the same point would otherwise never reach the factorisation budget.
+            let mut t = self.track.lock().expect("track lock");
+            t.n_calls += 1;
+            if t.n_calls > MAX_CALLS {
+                return Err(SurrogateError::BudgetExhausted {
+                    max: MAX_FACTORISATIONS,
+                });
+            }
+        }
         if let Some((q, f, g)) = self.last.lock().expect("cache lock").as_ref() {
             if q.as_slice() == p {
                 return Ok((*f, g.clone()));

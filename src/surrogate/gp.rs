@@ -153,6 +153,13 @@ impl Gp {
         if !hyper.to_vec().iter().all(|v| v.is_finite()) {
             return Err(SurrogateError::NonFiniteHyperparameters);
         }
+        // A search step can propose ln σ² so far out that σ² under- or overflows; the
+        // jitter below is relative to σ², so it could never grow from 0 (an endless
+        // loop, seen on outputs that a linear trend fits exactly).
+        let s2 = hyper.ln_signal_var.exp();
+        if !(s2.is_finite() && s2 > 0.0) {
+            return Err(SurrogateError::NotPositiveDefinite { n, jitter: 0.0 });
+        }
         let mut k = covariance(kernel, &hyper, x, x);
         let g = hyper.ln_signal_var.exp() * hyper.ln_nugget.exp();
         for i in 0..n {
@@ -408,4 +415,26 @@ impl Gp {
 fn ln_det(f: &CholeskyFactorized<ndarray::OwnedRepr<f64>>) -> f64 {
     let l = &f.factor;
     2.0 * (0..l.nrows()).map(|i| l[[i, i]].ln()).sum::<f64>()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use ndarray::array;
+
+    /// A search step far outside the box makes σ² = e^(ln σ²) underflow to 0 or
+    /// overflow to ∞; fitting must fail at once, not loop looking for a jitter.
+    #[test]
+    fn a_signal_variance_that_under_or_overflows_is_refused() {
+        let x = array![[0.1, 0.2], [0.5, 0.9], [0.9, 0.4], [0.3, 0.6]];
+        let y = array![0.0, 1.0, -1.0, 0.5];
+        for ln_s2 in [-1.0e4, 1.0e4] {
+            let h = Hyper::from_slice(&[ln_s2, 0.0, 0.0, (1e-6f64).ln()]);
+            let r = Gp::fit(x.view(), y.view(), Kernel::Matern52, Trend::Linear, h);
+            assert!(
+                matches!(r, Err(SurrogateError::NotPositiveDefinite { .. })),
+                "ln σ² = {ln_s2}"
+            );
+        }
+    }
 }
