@@ -85,7 +85,9 @@ fn cases(text: &str) -> Vec<(&'static str, String, bool)> {
     let range = "range: [0.0, 1.0]";
     let design = "design: {method: lhs, points: 4, seed: 7}";
     vec![
-        ("unknown top-level key", format!("{text}checks: {{confirmation_runs: 8}}\n"), false),
+        ("unknown top-level key", format!("{text}controls: {{temperature: 8}}\n"), false),
+        ("checks section", format!("{text}checks: {{confirmation_runs: 2}}\n"), true),
+        ("unknown key in checks", format!("{text}checks: {{refine: 2}}\n"), false),
         ("unknown key in a parameter", edit(text, range, "range: [0.0, 1.0]\n    scale: log"), false),
         ("range of three numbers", edit(text, range, "range: [0.0, 1.0, 2.0]"), false),
         ("range as text", edit(text, range, "range: \"0 to 1\""), false),
