@@ -29,7 +29,7 @@ build: openblas
 demo: build
 	./target/release/assay all $(STUDY)
 	@echo
-	@echo "Results: runs/tensile-bar/ (design.yaml, runs/, surrogate.yaml, posterior.yaml, posterior-samples.csv, report.html)"
+	@echo "Results: runs/tensile-bar/ (design.yaml, runs/, surrogate.yaml, posterior.yaml, posterior-samples.csv, checks.yaml, report.html)"
 	@echo "Quick example: ./target/release/assay all models/cantilever/study.yaml"
 	@echo "Again:   ./target/release/assay all $(STUDY)   (finished stages are reused)"
 
