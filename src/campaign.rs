@@ -495,16 +495,7 @@ pub fn calibrate_stage(
     let fitted = rec.body.to_fitted()?;
     let mut experiments: Vec<(&dyn Emulator, ExperimentLikelihood)> = Vec::new();
     for e in &c.study.experiments {
-        let model = fitted
-            .experiments
-            .iter()
-            .find(|m| m.experiment == e.name)
-            .with_context(|| {
-                format!(
-                    "the surrogate has no experiment `{}`: run `assay fit` again",
-                    e.name
-                )
-            })?;
+        let model = model_of(&fitted, &e.name)?;
         let names = runs::value_names(&c.study, e);
         let have: Vec<String> = model.outputs.iter().map(|o| o.name.clone()).collect();
         if names != have {
@@ -606,6 +597,18 @@ fn read_if_exists<T: serde::de::DeserializeOwned>(
     }
 }
 
+/// The surrogate of experiment `name`, or say how to make it.
+fn model_of<'a>(
+    fitted: &'a FittedSurrogate,
+    name: &str,
+) -> Result<&'a crate::surrogate::ExperimentModel> {
+    fitted
+        .experiments
+        .iter()
+        .find(|m| m.experiment == name)
+        .with_context(|| format!("the surrogate has no experiment `{name}`: run `assay fit` again"))
+}
+
 /// Posterior predictive checks of every experiment: `checks.yaml`.
 ///
 /// # Errors
@@ -653,16 +656,7 @@ pub fn check_stage(
     clock.seed("checks", seed);
     let mut experiments = Vec::new();
     for (k, e) in c.study.experiments.iter().enumerate() {
-        let model = fitted
-            .experiments
-            .iter()
-            .find(|m| m.experiment == e.name)
-            .with_context(|| {
-                format!(
-                    "the surrogate has no experiment `{}`: run `assay fit` again",
-                    e.name
-                )
-            })?;
+        let model = model_of(&fitted, &e.name)?;
         let noise: Option<Vec<f64>> = samples
             .column(&format!("noise_sd.{}", e.name))
             .map(|j| rows.iter().map(|r| r[j]).collect());
@@ -808,11 +802,7 @@ fn confirm_runs(
     let (set, _) = runs::load_runs(&c.study, &design, &c.dir)?;
     let mut experiments = Vec::new();
     for e in &c.study.experiments {
-        let model = fitted
-            .experiments
-            .iter()
-            .find(|m| m.experiment == e.name)
-            .with_context(|| format!("the surrogate has no experiment `{}`", e.name))?;
+        let model = model_of(fitted, &e.name)?;
         let er = set
             .experiments
             .iter()

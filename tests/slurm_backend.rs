@@ -48,6 +48,13 @@ fn slurm_ready(test: &str) -> bool {
     ok
 }
 
+/// This test's turn on the Slurm node, or `None` when Slurm does not answer (see
+/// [`slurm_ready`]).
+fn slurm_turn(test: &str) -> Option<std::sync::MutexGuard<'static, ()>> {
+    let guard = SLURM.lock().unwrap_or_else(|e| e.into_inner());
+    slurm_ready(test).then_some(guard)
+}
+
 #[derive(Debug, Deserialize)]
 struct SlurmTaskRecord {
     job: String,
@@ -118,10 +125,9 @@ fn stdout_of(o: &std::process::Output) -> String {
 /// and bit-identical output values as the local backend, and names its array tasks.
 #[test]
 fn forty_runs_through_slurm_match_the_local_backend() {
-    let _g = SLURM.lock().unwrap_or_else(|e| e.into_inner());
-    if !slurm_ready("forty_runs_through_slurm_match_the_local_backend") {
+    let Some(_g) = slurm_turn("forty_runs_through_slurm_match_the_local_backend") else {
         return;
-    }
+    };
     let bin = ensure_model_binary("cantilever");
     let env = Env::new();
     let env_slurm = Env::new();
@@ -198,10 +204,9 @@ fn forty_runs_through_slurm_match_the_local_backend() {
 /// a later `run` collects them all.
 #[test]
 fn detach_then_status_then_collect() {
-    let _g = SLURM.lock().unwrap_or_else(|e| e.into_inner());
-    if !slurm_ready("detach_then_status_then_collect") {
+    let Some(_g) = slurm_turn("detach_then_status_then_collect") else {
         return;
-    }
+    };
     let env = Env::new();
     let study = slurm_study(&env, "slow", "", 0);
     env.assay(["design"]).arg(&study).assert().success();
@@ -266,10 +271,9 @@ fn detach_then_status_then_collect() {
 /// and are submitted again (retries: 1), so the campaign still ends complete.
 #[test]
 fn scancelled_tasks_fail_with_the_reason_and_are_retried() {
-    let _g = SLURM.lock().unwrap_or_else(|e| e.into_inner());
-    if !slurm_ready("scancelled_tasks_fail_with_the_reason_and_are_retried") {
+    let Some(_g) = slurm_turn("scancelled_tasks_fail_with_the_reason_and_are_retried") else {
         return;
-    }
+    };
     let env = Env::new();
     // One task at a time, 2 s each: the last two wait long enough to be cancelled.
     let study = slurm_study(&env, "slow", "    array_limit: 1\n", 1);
@@ -315,10 +319,9 @@ fn scancelled_tasks_fail_with_the_reason_and_are_retried() {
 /// and the simulator's stderr; `run` exits with code 3.
 #[test]
 fn a_failing_simulator_inside_a_task_is_recorded() {
-    let _g = SLURM.lock().unwrap_or_else(|e| e.into_inner());
-    if !slurm_ready("a_failing_simulator_inside_a_task_is_recorded") {
+    let Some(_g) = slurm_turn("a_failing_simulator_inside_a_task_is_recorded") else {
         return;
-    }
+    };
     let env = Env::new();
     let study = slurm_study(&env, "fail", "", 1);
     env.assay(["design"]).arg(&study).assert().success();
@@ -344,10 +347,9 @@ fn a_failing_simulator_inside_a_task_is_recorded() {
 /// so that a value with spaces and quotes reaches the simulator unchanged.
 #[test]
 fn job_script_carries_the_options_and_quotes_arguments() {
-    let _g = SLURM.lock().unwrap_or_else(|e| e.into_inner());
-    if !slurm_ready("job_script_carries_the_options_and_quotes_arguments") {
+    let Some(_g) = slurm_turn("job_script_carries_the_options_and_quotes_arguments") else {
         return;
-    }
+    };
     let env = Env::new();
     let study = slurm_study(
         &env,
@@ -380,10 +382,9 @@ fn job_script_carries_the_options_and_quotes_arguments() {
 /// timeout named, as on the local backend.
 #[test]
 fn a_run_past_its_timeout_is_stopped_inside_its_task() {
-    let _g = SLURM.lock().unwrap_or_else(|e| e.into_inner());
-    if !slurm_ready("a_run_past_its_timeout_is_stopped_inside_its_task") {
+    let Some(_g) = slurm_turn("a_run_past_its_timeout_is_stopped_inside_its_task") else {
         return;
-    }
+    };
     let env = Env::new();
     let study = slurm_study(&env, "hang", "", 0);
     let text = std::fs::read_to_string(&study).expect("study");
@@ -406,10 +407,10 @@ fn a_run_past_its_timeout_is_stopped_inside_its_task() {
 fn ctrl_c_leaves_the_jobs_running_and_the_next_run_collects_them() {
     use nix::sys::signal::{kill, Signal};
     use nix::unistd::Pid;
-    let _g = SLURM.lock().unwrap_or_else(|e| e.into_inner());
-    if !slurm_ready("ctrl_c_leaves_the_jobs_running_and_the_next_run_collects_them") {
+    let Some(_g) = slurm_turn("ctrl_c_leaves_the_jobs_running_and_the_next_run_collects_them")
+    else {
         return;
-    }
+    };
     let env = Env::new();
     let study = slurm_study(&env, "slow", "    array_limit: 1\n", 0);
     env.assay(["design"]).arg(&study).assert().success();
