@@ -285,14 +285,7 @@ pub fn augment(design: &Design, params: &[Parameter], n_add: usize) -> Result<De
     let mut out = design.clone();
     out.points
         .extend(to_points(params, design.space, &unit, first));
-    if out.rounds.is_empty() {
-        out.rounds.push(Round::Initial {
-            method: design.method,
-            n: design.points.len(),
-            seed: design.seed,
-            search: None,
-        });
-    }
+    ensure_initial_round(&mut out, design);
     out.rounds.push(Round::Added {
         n: n_add,
         fill,
@@ -302,6 +295,19 @@ pub fn augment(design: &Design, params: &[Parameter], n_add: usize) -> Result<De
     out.quality = Some(quality(concatenate![Axis(0), old, unit].view()));
     out.warnings = warnings;
     Ok(out)
+}
+
+/// Make sure `out` (a copy of `design` being extended) starts with its initial round:
+/// a record without rounds reads as one initial round of all its points.
+fn ensure_initial_round(out: &mut Design, design: &Design) {
+    if out.rounds.is_empty() {
+        out.rounds.push(Round::Initial {
+            method: design.method,
+            n: design.points.len(),
+            seed: design.seed,
+            search: None,
+        });
+    }
 }
 
 /// Append the given points (parameter values, in the design's parameter order) as a new
@@ -352,14 +358,7 @@ pub fn append(
             values: v.clone(),
         });
     }
-    if out.rounds.is_empty() {
-        out.rounds.push(Round::Initial {
-            method: design.method,
-            n: design.points.len(),
-            seed: design.seed,
-            search: None,
-        });
-    }
+    ensure_initial_round(&mut out, design);
     out.rounds.push(Round::Added {
         n: values.len(),
         fill,
