@@ -142,14 +142,7 @@ mod tests {
         let text = format!(
             "name: t\nparameters:\n{parameters}simulator:\n  command: [sim]\n  output: {{file: o.csv, x: x, y: [y]}}\nexperiments:\n  - {{name: e, data: d.csv, noise: {{sd: 0.1}}}}\n{rest}"
         );
-        let read = |_: &std::path::Path| Ok("x,y\n0,1.5\n1,2.0\n".to_string());
-        crate::study::parse(
-            &text,
-            std::path::Path::new("s.yaml"),
-            std::path::Path::new("."),
-            &read,
-        )
-        .expect("a valid study")
+        crate::study::parse_with_data(&text, "x,y\n0,1.5\n1,2.0\n")
     }
 
     const BASE: &str = "  - {name: a, unit: mm, range: [0, 5]}\n";

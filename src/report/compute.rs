@@ -273,14 +273,7 @@ mod tests {
         let text = format!(
             "name: t\nparameters:\n  - {{name: a, range: [0, 5]}}\nsimulator:\n  command: [sim]\n  output: {{file: o.csv, x: x, y: [y]}}\nexperiments:\n  - {{name: e, data: d.csv, noise: {noise}}}\n"
         );
-        let read = |_: &std::path::Path| Ok("x,y,s\n0,1.5,0.2\n1,2.0,0.4\n1,9.0,0.2\n".to_string());
-        crate::study::parse(
-            &text,
-            std::path::Path::new("s.yaml"),
-            std::path::Path::new("."),
-            &read,
-        )
-        .expect("a valid study")
+        crate::study::parse_with_data(&text, "x,y,s\n0,1.5,0.2\n1,2.0,0.4\n1,9.0,0.2\n")
     }
 
     #[test]

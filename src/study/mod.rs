@@ -24,3 +24,20 @@ pub use validate::{
     FileTemplate, HyperpriorChoice, KernelChoice, MeanChoice, Noise, OutputFormat, OutputSpec,
     Parameter, Prior, Simulator, Study, SurrogateParams,
 };
+
+/// A study parsed from `text` whose every data file reads as `data` (unit tests of the
+/// stages that need a checked study but no files).
+///
+/// # Panics
+/// If the study is not valid.
+#[cfg(test)]
+pub(crate) fn parse_with_data(text: &str, data: &str) -> Study {
+    let read = |_: &std::path::Path| Ok(data.to_string());
+    parse(
+        text,
+        std::path::Path::new("s.yaml"),
+        std::path::Path::new("."),
+        &read,
+    )
+    .expect("a valid study")
+}
