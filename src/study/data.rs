@@ -40,6 +40,12 @@ impl FieldData {
         y_cols: &[String],
         sd_col: Option<&str>,
     ) -> Result<Self, (usize, String)> {
+        if text.trim().is_empty() {
+            return Err((
+                1,
+                "the data file is empty (expected a header line naming the columns, then one row per measurement)".into(),
+            ));
+        }
         let mut reader = csv::ReaderBuilder::new()
             .trim(csv::Trim::All)
             .from_reader(text.as_bytes());
@@ -48,6 +54,10 @@ impl FieldData {
             .map_err(|e| (1, format!("cannot read the header: {e}")))?
             .clone();
         let find = |name: &str| -> Result<usize, (usize, String)> {
+            if headers.iter().filter(|h| *h == name).count() > 1 {
+                // Which of the two is meant cannot be told: refuse rather than pick one.
+                return Err((1, format!("column `{name}` appears more than once")));
+            }
             headers.iter().position(|h| h == name).ok_or_else(|| {
                 (
                     1,
@@ -70,6 +80,9 @@ impl FieldData {
             let rec = rec.map_err(|e| (line, format!("malformed row: {e}")))?;
             let num = |i: usize, what: &str| -> Result<f64, (usize, String)> {
                 let s = rec.get(i).unwrap_or("");
+                if s.is_empty() {
+                    return Err((line, format!("empty cell in column `{what}`")));
+                }
                 let v: f64 = s
                     .parse()
                     .map_err(|_| (line, format!("`{s}` in column `{what}` is not a number")))?;

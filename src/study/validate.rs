@@ -180,17 +180,48 @@ impl Study {
     }
 }
 
+/// Largest study file read, bytes. A study is a page of settings (the bundled ones are
+/// about 2 KiB); a file of megabytes is a mistake (a data file or a binary named by
+/// accident) or hostile, and is refused before the YAML parser spends time on it.
+pub const MAX_STUDY_BYTES: u64 = 1 << 20;
+
+/// The text of the study file at `path`, refused when larger than [`MAX_STUDY_BYTES`]
+/// (checked while reading, so a file that grows meanwhile is refused too).
+fn read_study_text(path: &Path) -> Result<String, String> {
+    use std::io::Read;
+    let file = std::fs::File::open(path).map_err(|e| format!("cannot read the study file: {e}"))?;
+    if file.metadata().map(|m| m.is_dir()).unwrap_or(false) {
+        return Err("cannot read the study file: it is a folder".into());
+    }
+    let mut bytes = Vec::new();
+    file.take(MAX_STUDY_BYTES + 1)
+        .read_to_end(&mut bytes)
+        .map_err(|e| format!("cannot read the study file: {e}"))?;
+    if bytes.len() as u64 > MAX_STUDY_BYTES {
+        return Err(format!(
+            "the study file is larger than {} KiB; a study is a page of settings (is this the right file?)",
+            MAX_STUDY_BYTES / 1024
+        ));
+    }
+    String::from_utf8(bytes).map_err(|e| {
+        format!(
+            "the study file is not UTF-8 text (invalid byte at offset {})",
+            e.utf8_error().valid_up_to()
+        )
+    })
+}
+
 /// Read and check the study at `path`.
 ///
 /// # Errors
 /// Every problem found, each naming the file, the key path and the line.
 pub fn load(path: &Path) -> Result<Study, StudyErrors> {
-    let text = std::fs::read_to_string(path).map_err(|e| {
+    let text = read_study_text(path).map_err(|message| {
         StudyErrors(vec![StudyError {
             file: path.to_path_buf(),
             key: String::new(),
             line: None,
-            message: format!("cannot read the study file: {e}"),
+            message,
         }])
     })?;
     let dir = path
@@ -225,7 +256,9 @@ impl Checker<'_> {
     }
 }
 
-fn is_folder_name(s: &str) -> bool {
+/// Is `s` usable as one folder name under the campaign (study, experiment and point
+/// names): `[A-Za-z0-9._-]+`, neither `.` nor `..`, so it can never climb out.
+pub fn is_folder_name(s: &str) -> bool {
     !s.is_empty()
         && s != "."
         && s != ".."
@@ -260,6 +293,35 @@ fn strip_locations(msg: &str) -> String {
         out.replace_range(i..end, "");
     }
     out
+}
+
+/// Does `text` hold no YAML value at all (nothing, blanks, comments)?
+fn is_empty_document(text: &str) -> bool {
+    text.lines()
+        .map(str::trim)
+        .all(|l| l.is_empty() || l.starts_with('#') || l == "---" || l == "...")
+}
+
+/// serde's wording in the words of the study file: keys rather than fields, a mapping
+/// rather than a Rust struct, and what the YAML parser's limits are there for.
+fn plain_serde_message(message: &str) -> String {
+    let mut m = message.replace("unknown field", "unknown key");
+    m = m.replace("duplicate field", "duplicate key");
+    m = m.replace("missing field", "missing key");
+    if let Some(i) = m.find("expected struct ") {
+        // "expected struct StudySpec" names a Rust type the user never sees.
+        let end = m[i + "expected struct ".len()..]
+            .find(|c: char| !c.is_ascii_alphanumeric())
+            .map_or(m.len(), |j| i + "expected struct ".len() + j);
+        m.replace_range(i..end, "expected a mapping of keys");
+    }
+    if m.contains("repetition limit exceeded") {
+        // serde_yaml's guard against alias expansion ("billion laughs").
+        m = "the YAML expands too far through its aliases (`*name`); a study needs none this large (repetition limit exceeded)".into();
+    } else if m.contains("recursion limit exceeded") {
+        m = "the YAML is nested too deeply (recursion limit exceeded)".into();
+    }
+    m
 }
 
 /// The key named by an "unknown field `x`" message, appended to its parent's path.
@@ -303,7 +365,12 @@ pub fn parse(
                 _ => (String::new(), msg),
             };
             let key = unknown_key_path(&key, &message).unwrap_or(key);
-            let message = message.replace("unknown field", "unknown key");
+            let empty = is_empty_document(text);
+            let (line, message) = if empty {
+                (None, "the study file is empty (expected a mapping with at least `name`, `parameters`, `simulator` and `experiments`)".to_string())
+            } else {
+                (line, plain_serde_message(&message))
+            };
             return Err(StudyErrors(vec![StudyError {
                 file: file.to_path_buf(),
                 key,
@@ -323,7 +390,7 @@ pub fn parse(
             "name",
             format!(
                 "`{}` is not a valid study name (expected [A-Za-z0-9._-]+)",
-                spec.name
+                spec.name.escape_debug()
             ),
         );
     }
@@ -341,7 +408,7 @@ pub fn parse(
                 format!("{key}.name"),
                 format!(
                     "`{}` is not a valid parameter name (expected [A-Za-z_][A-Za-z0-9_]*)",
-                    p.name
+                    p.name.escape_debug()
                 ),
             );
         } else if RESERVED.contains(&p.name.as_str()) {
@@ -442,10 +509,15 @@ pub fn parse(
         c.err("simulator.output.y", "name at least one output quantity");
     }
     for name in sim.env.keys() {
-        if name.is_empty() || name.contains('=') || name.contains('\0') {
+        // The portable names of POSIX (XBD 8.1). Anything else could not be exported by
+        // the Slurm job script without quoting the name, which a shell does not allow.
+        if !placeholder::is_identifier(name) {
             c.err(
                 format!("simulator.env.{name}"),
-                format!("`{name}` is not a valid environment variable name"),
+                format!(
+                    "`{}` is not a valid environment variable name (expected [A-Za-z_][A-Za-z0-9_]*)",
+                    name.escape_debug()
+                ),
             );
         }
     }
@@ -491,7 +563,7 @@ pub fn parse(
                 format!("{key}.name"),
                 format!(
                     "`{}` is not a valid experiment name (expected [A-Za-z0-9._-]+)",
-                    e.name
+                    e.name.escape_debug()
                 ),
             );
         } else if !seen.insert(e.name.clone()) {
