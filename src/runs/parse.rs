@@ -73,6 +73,11 @@ fn parse_csv(text: &str, x: Option<&str>, y: &[String]) -> Result<Parsed, String
         .map_err(|e| format!("cannot read the CSV header: {e}"))?
         .clone();
     let col = |name: &str| {
+        if headers.iter().filter(|h| *h == name).count() > 1 {
+            return Err(format!(
+                "column `{name}` appears more than once in the output"
+            ));
+        }
         headers.iter().position(|h| h == name).ok_or_else(|| {
             format!(
                 "no column `{name}` in the output (columns: {})",
@@ -156,8 +161,20 @@ fn parse_tree(v: &serde_json::Value, x: Option<&str>, y: &[String]) -> Result<Pa
 /// The experiment's output vector (quantity-major, then station) from a parsed output.
 ///
 /// # Errors
-/// A field x outside the simulated range, or simulated x values that are not distinct.
+/// An empty curve or scalar, columns of different lengths, a field x outside the
+/// simulated range, or simulated x values that are not distinct.
 pub fn match_stations(parsed: &Parsed, stations: &[Option<f64>]) -> Result<Vec<f64>, String> {
+    let n = parsed.x.as_ref().map_or(1, Vec::len);
+    if n == 0 {
+        // A JSON or YAML output may hold `x: []`, which the CSV reader cannot.
+        return Err("the output's curve has no points".into());
+    }
+    if let Some(col) = parsed.y.iter().find(|c| c.len() != n) {
+        return Err(format!(
+            "an output quantity has {} values but {n} were expected",
+            col.len()
+        ));
+    }
     let mut out = Vec::with_capacity(parsed.y.len() * stations.len());
     match &parsed.x {
         None => {
@@ -233,6 +250,27 @@ mod tests {
             parse_output("x,z\n0,1\n", OutputFormat::Csv, Some("x"), &names(&["y"])).unwrap_err();
         assert!(e.contains("no column `y`"), "{e}");
         assert!(parse_output("", OutputFormat::Csv, None, &names(&["y"])).is_err());
+    }
+
+    #[test]
+    fn an_empty_curve_is_an_error_not_a_panic() {
+        // Found by the proptest smoke run (tests/reliability_proptest.rs): a JSON or
+        // YAML output may hold empty lists, and matching indexed the first x.
+        let p = parse_output(
+            r#"{"x": [], "y": []}"#,
+            OutputFormat::Json,
+            Some("x"),
+            &names(&["y"]),
+        )
+        .unwrap();
+        let e = match_stations(&p, &[Some(1.0)]).unwrap_err();
+        assert_eq!(e, "the output's curve has no points");
+        let ragged = Parsed {
+            x: Some(vec![0.0, 1.0]),
+            y: vec![vec![1.0]],
+        };
+        let e = match_stations(&ragged, &[Some(0.5)]).unwrap_err();
+        assert_eq!(e, "an output quantity has 1 values but 2 were expected");
     }
 
     #[test]

@@ -1,0 +1,20 @@
+//! The field-data reader on arbitrary text, with and without a curve column and an sd
+//! column: rows or a (line, message) error, never a panic.
+#![no_main]
+
+use assay::study::FieldData;
+use libfuzzer_sys::fuzz_target;
+
+fuzz_target!(|bytes: &[u8]| {
+    let Some((&first, rest)) = bytes.split_first() else {
+        return;
+    };
+    let Ok(text) = std::str::from_utf8(rest) else {
+        return;
+    };
+    let x = (first & 1 != 0).then_some("x");
+    let sd = (first & 2 != 0).then_some("sd");
+    if let Ok(d) = FieldData::parse(text, x, &["y".to_string()], sd) {
+        let _ = d.targets(1);
+    }
+});
