@@ -56,19 +56,25 @@ fn write_atomic_with(path: &Path, bytes: &[u8], sync: bool) -> Result<()> {
         std::process::id(),
         std::thread::current().id()
     ));
-    {
+    // Errors name the file being written; the temporary is a detail.
+    let written = (|| {
         let mut f = std::fs::File::create(&tmp)
-            .with_context(|| format!("cannot create {}", tmp.display()))?;
+            .with_context(|| format!("cannot write {}", path.display()))?;
         f.write_all(bytes)
-            .with_context(|| format!("cannot write {}", tmp.display()))?;
+            .with_context(|| format!("cannot write {}", path.display()))?;
         if sync {
             f.sync_all()
-                .with_context(|| format!("cannot flush {} to disk", tmp.display()))?;
+                .with_context(|| format!("cannot flush {} to disk", path.display()))?;
         }
+        std::fs::rename(&tmp, path)
+            .with_context(|| format!("cannot put the new {} in place", path.display()))
+    })();
+    if written.is_err() {
+        // On a full disk the half-written temporary would hold on to the space that is
+        // missing; `path` itself is untouched.
+        let _ = std::fs::remove_file(&tmp);
     }
-    std::fs::rename(&tmp, path)
-        .with_context(|| format!("cannot move {} to {}", tmp.display(), path.display()))?;
-    Ok(())
+    written
 }
 
 /// A record of a transient state, written atomically without fsync.

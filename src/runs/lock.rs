@@ -12,7 +12,11 @@ use std::path::{Path, PathBuf};
 pub enum LockError {
     #[error("the campaign {path} is in use by another assay process ({holder}); wait for it to finish or stop it")]
     Held { path: PathBuf, holder: String },
-    #[error("cannot open the lock file {path}: {source}")]
+    // The source (the system's reason) follows in the error chain, not here, or the
+    // terminal would show it twice.
+    #[error(
+        "cannot open the lock file {path} (assay writes in the campaign folder, even to resume)"
+    )]
     Io {
         path: PathBuf,
         source: std::io::Error,
