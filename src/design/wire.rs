@@ -141,8 +141,9 @@ impl DesignBody {
     /// Back to a [`Design`].
     ///
     /// # Errors
-    /// A point without an id or without a number for a parameter; a malformed round or
-    /// rounds whose sizes do not add up to the points.
+    /// A point without an id, with an id that is not a folder name or repeated, or without
+    /// a number for a parameter; a malformed round or rounds whose sizes do not add up to
+    /// the points.
     pub fn to_design(&self) -> Result<Design> {
         let mut points = Vec::new();
         for (i, m) in self.points.iter().enumerate() {
@@ -151,6 +152,13 @@ impl DesignBody {
                 .and_then(Value::as_str)
                 .with_context(|| format!("points[{i}] has no id"))?
                 .to_string();
+            // The id names the run folders: it must not climb out of `runs/`.
+            if !crate::study::is_folder_name(&id) {
+                bail!("points[{i}]: id `{id}` is not a folder name (expected [A-Za-z0-9._-]+, not `.` or `..`)");
+            }
+            if points.iter().any(|p: &DesignPoint| p.id == id) {
+                bail!("points[{i}]: id `{id}` appears twice");
+            }
             let mut values = Vec::new();
             for n in &self.parameters {
                 match m.get(n.as_str()).and_then(Value::as_f64) {

@@ -347,6 +347,20 @@ fn watch(
     }
 }
 
+/// A new empty file at `path`. Whatever was there is removed first, so a symbolic link
+/// left by an earlier attempt is replaced, never written through.
+fn fresh_file(path: &Path) -> std::io::Result<std::fs::File> {
+    match std::fs::remove_file(path) {
+        Ok(()) => {}
+        Err(e) if e.kind() == std::io::ErrorKind::NotFound => {}
+        Err(e) => return Err(e),
+    }
+    std::fs::OpenOptions::new()
+        .write(true)
+        .create_new(true)
+        .open(path)
+}
+
 /// One attempt: start, wait with timeout (or interruption), parse.
 #[allow(clippy::too_many_arguments)] // one attempt's whole context; called from one place
 fn attempt(
@@ -363,7 +377,7 @@ fn attempt(
     let out_path = dir.join(&sim.output.file);
     // A stale output from an earlier attempt must not be mistaken for this one's.
     let _ = std::fs::remove_file(&out_path);
-    let stdout = match std::fs::File::create(dir.join("stdout.txt")) {
+    let stdout = match fresh_file(&dir.join("stdout.txt")) {
         Ok(f) => f,
         Err(err) => {
             return (
@@ -372,7 +386,7 @@ fn attempt(
             )
         }
     };
-    let stderr = match std::fs::File::create(dir.join("stderr.txt")) {
+    let stderr = match fresh_file(&dir.join("stderr.txt")) {
         Ok(f) => f,
         Err(err) => {
             return (

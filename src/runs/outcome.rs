@@ -36,6 +36,9 @@ pub(crate) fn exit_failure(why: String, dir: &Path) -> String {
 pub(crate) fn read_output(study: &Study, e: &Experiment, dir: &Path) -> Outcome {
     let sim = &study.simulator;
     let out_path = dir.join(&sim.output.file);
+    if let Err(why) = inside(dir, &out_path) {
+        return Outcome::Failed(format!("output file `{}` {why}; not read", sim.output.file));
+    }
     let text = match std::fs::read_to_string(&out_path) {
         Ok(t) => t,
         Err(err) => {
@@ -58,6 +61,30 @@ pub(crate) fn read_output(study: &Study, e: &Experiment, dir: &Path) -> Outcome 
             Ok(h) => Outcome::Done(v, h),
             Err(err) => Outcome::Failed(format!("cannot hash the output: {err}")),
         },
+    }
+}
+
+/// Whether `path` (below the run folder `dir`) leads, through whatever links, to a file
+/// inside `dir`. A missing file passes: reading it gives the usual error.
+fn inside(dir: &Path, path: &Path) -> Result<(), String> {
+    let real = match std::fs::canonicalize(path) {
+        Ok(p) => p,
+        Err(err) if err.kind() == std::io::ErrorKind::NotFound => {
+            if std::fs::symlink_metadata(path).is_ok() {
+                return Err("is a symbolic link to nothing".into());
+            }
+            return Ok(());
+        }
+        Err(err) => return Err(format!("cannot be resolved: {err}")),
+    };
+    let dir = std::fs::canonicalize(dir).map_err(|e| format!("run folder: {e}"))?;
+    if real.starts_with(&dir) {
+        Ok(())
+    } else {
+        Err(format!(
+            "is a symbolic link leading outside the run folder (to {})",
+            real.display()
+        ))
     }
 }
 

@@ -52,7 +52,7 @@ pub(crate) fn prepare(
     campaign: &Path,
 ) -> Result<Prepared> {
     let dir = run_dir(campaign, &point.id, &e.name);
-    std::fs::create_dir_all(&dir).with_context(|| format!("cannot create {}", dir.display()))?;
+    make_folders_inside(campaign, &dir)?;
     let dir = std::fs::canonicalize(&dir)?;
     let record_path = dir.join("run.yaml");
 
@@ -75,7 +75,12 @@ pub(crate) fn prepare(
         .map(|a| render(a))
         .collect::<Result<Vec<_>>>()?;
     for f in &study.simulator.files {
-        crate::record::write_atomic(&dir.join(&f.to), render(&f.text)?.as_bytes())?;
+        let to = dir.join(&f.to);
+        if let Some(parent) = to.parent() {
+            make_folders_inside(&dir, parent)?;
+        }
+        // write_atomic renames over `to`: a link there is replaced, never written through.
+        crate::record::write_atomic(&to, render(&f.text)?.as_bytes())?;
     }
     let env = study
         .simulator
@@ -120,4 +125,50 @@ pub(crate) fn prepare(
         body,
         point: point.clone(),
     })
+}
+
+/// Create the folders from `base` down to `path` (a folder below `base`), refusing any
+/// that exists as a symbolic link or as a file: a link left in the campaign (by a
+/// simulator, or planted) must not lead assay to write outside it.
+///
+/// # Errors
+/// A component is a link or not a folder, `path` is not below `base`, or a folder
+/// cannot be created.
+pub(crate) fn make_folders_inside(base: &Path, path: &Path) -> Result<()> {
+    let rel = path
+        .strip_prefix(base)
+        .map_err(|_| anyhow::anyhow!("{} is not inside {}", path.display(), base.display()))?;
+    let mut at = base.to_path_buf();
+    for part in rel.components() {
+        let std::path::Component::Normal(name) = part else {
+            anyhow::bail!(
+                "{} leaves {} (`..` or an absolute part)",
+                path.display(),
+                base.display()
+            );
+        };
+        at.push(name);
+        match std::fs::symlink_metadata(&at) {
+            Ok(m) if m.file_type().is_symlink() => anyhow::bail!(
+                "{} is a symbolic link; assay does not follow links inside a campaign folder (remove it and run again)",
+                at.display()
+            ),
+            Ok(m) if !m.is_dir() => {
+                anyhow::bail!("{} is in the way: a file where a folder belongs", at.display())
+            }
+            Ok(_) => {}
+            Err(err) if err.kind() == std::io::ErrorKind::NotFound => {
+                match std::fs::create_dir(&at) {
+                    Ok(()) => {}
+                    // Made meanwhile by another worker of this process.
+                    Err(err) if err.kind() == std::io::ErrorKind::AlreadyExists => {}
+                    Err(err) => {
+                        return Err(err).with_context(|| format!("cannot create {}", at.display()))
+                    }
+                }
+            }
+            Err(err) => return Err(err).with_context(|| format!("cannot inspect {}", at.display())),
+        }
+    }
+    Ok(())
 }

@@ -176,7 +176,7 @@ pub fn job_script(
 run_task() {{
   dir=$1; shift
   cd "$dir" || {{ echo "assay task: cannot enter $dir" >&2; exit 1; }}
-  rm -f {TASK_RESULT} .{TASK_RESULT}.tmp {out_file}
+  rm -f {TASK_RESULT} .{TASK_RESULT}.tmp {TASK_STARTED} {out_file} stdout.txt stderr.txt
   started=$(date +%s.%N)
   printf 'host: "%s"\nstarted_epoch_s: %s\n' "$(hostname)" "$started" > {TASK_STARTED}
   timeout -k {KILL_AFTER_S} {timeout} "$@" </dev/null >stdout.txt 2>stderr.txt
