@@ -42,6 +42,7 @@ pub const POSTERIOR_FILE: &str = "posterior.yaml";
 pub const SAMPLES_FILE: &str = "posterior-samples.csv";
 pub const REPORT_FILE: &str = "report.html";
 pub const CHECKS_FILE: &str = "checks.yaml";
+pub const REFINEMENT_FILE: &str = "refinement.yaml";
 
 /// Posterior draws the predictive checks use at most (thinned evenly).
 pub const CHECK_DRAWS: usize = 2000;
@@ -178,19 +179,25 @@ pub fn augment_design(c: &Campaign, n: usize) -> Result<Design> {
         ))
         .into());
     }
-    let mut clock = c.clock();
-    // The previous design.yaml is not listed among the inputs: it is overwritten here,
-    // so its hash could never be checked again; its points and rounds are kept instead.
-    c.hash_study_inputs(&mut clock)?;
-    clock.study_parts(audit::design_parts(&c.study));
-    clock.seed("design", existing.seed);
     let d = design::augment(&existing, &c.study.parameters, n)
         .map_err(|e| InputError(format!("cannot add points: {e}")))?;
-    write_record(
-        &path,
-        &Record::new("design", clock.finish(), DesignBody::from(&d)),
-    )?;
+    save_design(c, &d)?;
     Ok(d)
+}
+
+/// Write an extended design `d` over `design.yaml`.
+///
+/// The previous design.yaml is not listed among the inputs: it is overwritten here, so
+/// its hash could never be checked again; its points and rounds are kept instead.
+fn save_design(c: &Campaign, d: &Design) -> Result<()> {
+    let mut clock = c.clock();
+    c.hash_study_inputs(&mut clock)?;
+    clock.study_parts(audit::design_parts(&c.study));
+    clock.seed("design", d.seed);
+    write_record(
+        &c.path(DESIGN_FILE),
+        &Record::new("design", clock.finish(), DesignBody::from(d)),
+    )
 }
 
 /// Read the record `file` of the campaign, or say which command makes it.
@@ -524,7 +531,19 @@ pub fn calibrate_stage(
         until_converged: cal.until_converged,
     };
     clock.seed("calibration", cal.seed);
-    let mut post = LogPosterior::new(c.study.parameters.clone(), experiments);
+    // The training points are starting candidates for the chains (in design order,
+    // each once): a posterior in a small corner of a wide box is found even when no
+    // prior draw lands there.
+    let mut starts: Vec<Vec<f64>> = Vec::new();
+    for m in &fitted.experiments {
+        for x in &m.inputs {
+            if !starts.contains(x) {
+                starts.push(x.clone());
+            }
+        }
+    }
+    let mut post =
+        LogPosterior::new(c.study.parameters.clone(), experiments).with_start_candidates(&starts);
     if let Some(path) = &cal.prior_from {
         let samples = path.with_file_name("posterior-samples.csv");
         clock.input_named(&path.display().to_string(), path)?;
@@ -614,39 +633,13 @@ fn model_of<'a>(
 /// # Errors
 /// No surrogate or posterior yet, unreadable samples, or samples without a column for a
 /// parameter of the study.
-pub fn check_stage(
-    c: &Campaign,
-    confirm: Option<(RunOptions, &AtomicBool, &dyn Observer)>,
-) -> Result<crate::check::ChecksBody> {
+pub fn check_stage(c: &Campaign, confirm: Option<Confirm<'_>>) -> Result<crate::check::ChecksBody> {
     use crate::check::{check_experiment, ChecksBody};
-    use crate::report::compute::Samples;
     let surrogate: Record<SurrogateBody> = read_stage_record(c, SURROGATE_FILE, "fit")?;
     let _posterior: Record<PosteriorBody> = read_stage_record(c, POSTERIOR_FILE, "calibrate")?;
     let fitted = surrogate.body.to_fitted()?;
+    let (samples, rows, draws) = posterior_draws(c)?;
     let path = c.path(SAMPLES_FILE);
-    let text = std::fs::read_to_string(&path)
-        .with_context(|| format!("cannot read {}", path.display()))?;
-    let samples =
-        Samples::parse_csv(&text).map_err(|e| InputError(format!("{}:{e}", path.display())))?;
-    let rows = samples.thinned(CHECK_DRAWS);
-    let cols = c
-        .study
-        .parameters
-        .iter()
-        .map(|p| {
-            samples.column(&p.name).ok_or_else(|| {
-                InputError(format!(
-                    "{} has no column `{}`: run `assay calibrate` again",
-                    path.display(),
-                    p.name
-                ))
-            })
-        })
-        .collect::<Result<Vec<usize>, InputError>>()?;
-    let draws: Vec<Vec<f64>> = rows
-        .iter()
-        .map(|r| cols.iter().map(|&j| r[j]).collect())
-        .collect();
     let mut clock = c.clock();
     c.hash_study_inputs(&mut clock)?;
     clock.input_named(SURROGATE_FILE, &c.path(SURROGATE_FILE))?;
@@ -673,10 +666,9 @@ pub fn check_stage(
         experiments.push(check);
     }
     let confirmation = match confirm {
-        Some((options, stop, observer)) if c.study.confirmation_runs > 0 => {
-            let conf = confirm_runs(c, &fitted, &samples, &draws, options, stop, observer)?;
-            for (k, p) in conf.points.iter().enumerate() {
-                let _ = k;
+        Some(cf) if cf.n > 0 => {
+            let conf = confirm_runs(c, &fitted, &samples, &draws, cf)?;
+            for p in &conf.points {
                 for e in &c.study.experiments {
                     let rp = runs::run_record_path(&c.dir, &p.id, &e.name);
                     clock.input_named(&format!("runs/{}/{}/run.yaml", p.id, e.name), &rp)?;
@@ -704,6 +696,160 @@ pub fn check_stage(
     Ok(body)
 }
 
+/// Confirmation runs for [`check_stage`]: how many posterior draws (plus the mean), and
+/// how to run them.
+pub struct Confirm<'a> {
+    pub n: usize,
+    pub options: RunOptions,
+    pub stop: &'a AtomicBool,
+    pub observer: &'a dyn Observer,
+}
+
+/// The posterior samples, their rows thinned evenly to at most [`CHECK_DRAWS`], and
+/// those rows' parameter values in the study's order.
+///
+/// # Errors
+/// No samples file, a malformed one, or one without a column for a parameter.
+#[allow(clippy::type_complexity)]
+fn posterior_draws(
+    c: &Campaign,
+) -> Result<(
+    crate::report::compute::Samples,
+    Vec<Vec<f64>>,
+    Vec<Vec<f64>>,
+)> {
+    use crate::report::compute::Samples;
+    let path = c.path(SAMPLES_FILE);
+    let text = std::fs::read_to_string(&path)
+        .with_context(|| format!("cannot read {}", path.display()))?;
+    let samples =
+        Samples::parse_csv(&text).map_err(|e| InputError(format!("{}:{e}", path.display())))?;
+    let rows: Vec<Vec<f64>> = samples
+        .thinned(CHECK_DRAWS)
+        .into_iter()
+        .map(<[f64]>::to_vec)
+        .collect();
+    let cols = c
+        .study
+        .parameters
+        .iter()
+        .map(|p| {
+            samples.column(&p.name).ok_or_else(|| {
+                InputError(format!(
+                    "{} has no column `{}`: run `assay calibrate` again",
+                    path.display(),
+                    p.name
+                ))
+            })
+        })
+        .collect::<Result<Vec<usize>, InputError>>()?;
+    let draws: Vec<Vec<f64>> = rows
+        .iter()
+        .map(|r| cols.iter().map(|&j| r[j]).collect())
+        .collect();
+    Ok((samples, rows, draws))
+}
+
+/// Add a refinement round to the design: `n_near` points among the posterior draws
+/// (spread out by greedy maximin), then `n_global` over the whole box (the design's own
+/// way of adding points, as `assay design --add`). Writes `design.yaml`; returns the
+/// design and the ids of the two groups.
+///
+/// # Errors
+/// No design or posterior samples, or a design that does not match the study.
+pub fn refine_design(
+    c: &Campaign,
+    n_near: usize,
+    n_global: usize,
+) -> Result<(Design, Vec<String>, Vec<String>)> {
+    let existing = load_design(c)?;
+    if let Some(why) = design_mismatch(&c.study, &existing) {
+        return Err(InputError(format!(
+            "cannot refine: {} does not match the study: {why}; run `assay all` first",
+            c.path(DESIGN_FILE).display()
+        ))
+        .into());
+    }
+    let (_, _, draws) = posterior_draws(c)?;
+    let n0 = existing.points.len();
+    let mut d = existing;
+    if n_near > 0 {
+        let stream = d.rounds.len().max(1) as u64;
+        d = design::spread_among(
+            &d,
+            &c.study.parameters,
+            &draws,
+            n_near.min(draws.len()),
+            d.seed,
+            stream,
+        )
+        .map_err(|e| InputError(format!("cannot add refinement points: {e}")))?;
+    }
+    let n1 = d.points.len();
+    if n_global > 0 {
+        d = design::augment(&d, &c.study.parameters, n_global)
+            .map_err(|e| InputError(format!("cannot add refinement points: {e}")))?;
+    }
+    save_design(c, &d)?;
+    let ids = |r: std::ops::Range<usize>| d.points[r].iter().map(|p| p.id.clone()).collect();
+    let (near, global) = (ids(n0..n1), ids(n1..d.points.len()));
+    Ok((d, near, global))
+}
+
+/// Write `refinement.yaml`.
+///
+/// # Errors
+/// I/O.
+pub fn write_refinement(c: &Campaign, body: &crate::check::refine::RefinementBody) -> Result<()> {
+    let mut clock = c.clock();
+    c.hash_study_inputs(&mut clock)?;
+    clock.input_named(DESIGN_FILE, &c.path(DESIGN_FILE))?;
+    write_record(
+        &c.path(REFINEMENT_FILE),
+        &Record::new("refinement", clock.finish(), body.clone()),
+    )
+}
+
+/// Whether `refinement.yaml` records a finished refinement of the current design (so
+/// `assay all` with `checks.refine` does not refine again).
+pub fn refinement_done(c: &Campaign) -> bool {
+    use crate::check::refine::{RefinementBody, Stopped};
+    let Ok(rec) = read_record::<RefinementBody>(&c.path(REFINEMENT_FILE)) else {
+        return false;
+    };
+    let Ok(sha) = sha256_file(&c.path(DESIGN_FILE)) else {
+        return false;
+    };
+    rec.body.stopped != Stopped::InProgress && rec.body.design_sha256.as_deref() == Some(&sha)
+}
+
+/// The sha256 of `design.yaml`.
+///
+/// # Errors
+/// I/O.
+pub fn design_sha256(c: &Campaign) -> Result<String> {
+    Ok(sha256_file(&c.path(DESIGN_FILE))?)
+}
+
+/// Posterior means of the parameters (study order) from `posterior.yaml`.
+///
+/// # Errors
+/// No posterior yet, or one without a parameter of the study.
+pub fn posterior_means(c: &Campaign) -> Result<Vec<f64>> {
+    let p: Record<PosteriorBody> = read_stage_record(c, POSTERIOR_FILE, "calibrate")?;
+    c.study
+        .parameters
+        .iter()
+        .map(|q| {
+            p.body
+                .parameters
+                .get(&q.name)
+                .map(|s| s.mean)
+                .with_context(|| format!("posterior.yaml has no parameter `{}`", q.name))
+        })
+        .collect()
+}
+
 /// First random stream of the predictive checks (one per experiment).
 const CHECK_STREAM_BASE: u64 = 1 << 40;
 /// Random stream that picks the confirmation draws.
@@ -717,15 +863,13 @@ fn confirm_runs(
     fitted: &FittedSurrogate,
     samples: &crate::report::compute::Samples,
     draws: &[Vec<f64>],
-    options: RunOptions,
-    stop: &AtomicBool,
-    observer: &dyn Observer,
+    cf: Confirm<'_>,
 ) -> Result<crate::check::Confirmation> {
     use crate::check::{confirm_experiment, Confirmation, ConfirmationPoint};
     let d = c.study.parameters.len();
     let seed = c.study.calibration.seed;
     let mut rng = crate::rng::stream(seed, CONFIRM_STREAM);
-    let n = c.study.confirmation_runs.min(draws.len());
+    let n = cf.n.min(draws.len());
     let mut picks = rand::seq::index::sample(&mut rng, draws.len(), n).into_vec();
     picks.sort_unstable();
     let mut candidates: Vec<(String, Vec<f64>)> = Vec::with_capacity(n + 1);
@@ -771,14 +915,7 @@ fn confirm_runs(
             stream,
         )
         .map_err(|e| InputError(format!("cannot add confirmation points: {e}")))?;
-        let mut clock = c.clock();
-        c.hash_study_inputs(&mut clock)?;
-        clock.study_parts(audit::design_parts(&c.study));
-        clock.seed("design", d2.seed);
-        write_record(
-            &c.path(DESIGN_FILE),
-            &Record::new("design", clock.finish(), DesignBody::from(&d2)),
-        )?;
+        save_design(c, &d2)?;
         d2
     };
     for p in points.iter_mut().filter(|p| !p.reused) {
@@ -794,10 +931,10 @@ fn confirm_runs(
         &c.study,
         &design,
         &c.dir,
-        options,
+        cf.options,
         &c.command_line,
-        stop,
-        observer,
+        cf.stop,
+        cf.observer,
     )?;
     let (set, _) = runs::load_runs(&c.study, &design, &c.dir)?;
     let mut experiments = Vec::new();

@@ -18,7 +18,7 @@ pub use diagnostics::{ess_bulk, ess_tail, quantile_sorted, rhat, Diagnostics};
 pub use likelihood::{ln_normal_low_rank, Emulator, ExperimentLikelihood};
 pub use posterior::LogPosterior;
 pub use prior::{ln_prior, InverseGamma, MvnPrior, Transform};
-pub use sampler::{converged, sample, Chain, SamplerParams, Termination};
+pub use sampler::{converged, sample, Chain, Restart, SamplerParams, Termination};
 pub use summary::{
     summarize, Correlation, Marginal, Mcse, NoiseMcse, NoiseSummary, ParameterSummary,
     PosteriorBody, PosteriorSummary, CAUTION, ESS_WARN, RHAT_WARN,

@@ -26,6 +26,8 @@
 //! fitness via realized discrepancies. Statistica Sinica 6, 733–807 *(equation number
 //! from memory)*.
 
+pub mod refine;
+
 use crate::calibrate::Emulator;
 use crate::study::{Experiment, Noise, Study};
 use rand::Rng;

@@ -63,6 +63,10 @@ pub enum Fill {
     /// (`assay check`); `seed` and `stream` are those the draws were picked with.
     #[serde(rename = "posterior-draws")]
     PosteriorDraws,
+    /// Refinement (`assay refine`): points picked among posterior draws, spread out
+    /// from the design's points by greedy maximin ([`pick_spread`]).
+    #[serde(rename = "posterior-spread")]
+    PosteriorSpread,
 }
 
 /// One round of a design: the initial points, or points added later.
@@ -370,6 +374,43 @@ pub fn append(
     Ok(out)
 }
 
+/// Add `n` of the candidate points `draws` (posterior draws, parameter values in the
+/// design's order) as a new round with [`Fill::PosteriorSpread`]: greedy maximin in the
+/// unit box of the design's space ([`pick_spread`]) picks each next draw as far as
+/// possible from the design's points and the draws picked before it, so the new runs
+/// cover the region where the posterior lives instead of piling up at its mode.
+///
+/// # Errors
+/// `n` = 0 or more than the draws; parameters that differ from the design's; a draw
+/// outside the box.
+pub fn spread_among(
+    design: &Design,
+    params: &[Parameter],
+    draws: &[Vec<f64>],
+    n: usize,
+    seed: u64,
+    stream: u64,
+) -> Result<Design, DesignError> {
+    if n == 0 || n > draws.len() {
+        return Err(DesignError::NothingToAdd);
+    }
+    let names: Vec<String> = params.iter().map(|p| p.name.clone()).collect();
+    if names != design.names {
+        return Err(DesignError::ParametersDiffer {
+            design: design.names.join(", "),
+            study: names.join(", "),
+        });
+    }
+    let candidates = Array2::from_shape_fn((draws.len(), params.len()), |(i, j)| {
+        to_unit(&params[j], design.space, draws[i][j])
+    });
+    let existing = design.unit_points(params);
+    let mut rng = crate::rng::stream(seed, stream);
+    let picked = pick_spread(candidates.view(), existing.view(), n, &mut rng);
+    let values: Vec<Vec<f64>> = picked.iter().map(|&i| draws[i].clone()).collect();
+    append(design, params, &values, Fill::PosteriorSpread, seed, stream)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -418,6 +459,50 @@ mod tests {
             ));
             assert_eq!(d2.points.last().unwrap().id, "p0037");
         }
+    }
+
+    #[test]
+    fn spreading_among_draws_picks_distinct_draws_away_from_the_design() {
+        use rand::Rng;
+        let p = params(2);
+        let d0 = generate(&p, &spec(DesignMethod::Lhs, 10)).unwrap();
+        // A cloud of 200 draws in the corner [0, 0.2] x [1, 1.2] of the box [0,2]x[1,3].
+        let mut rng = crate::rng::stream(3, 0);
+        let draws: Vec<Vec<f64>> = (0..200)
+            .map(|_| vec![rng.gen_range(0.0..0.2), rng.gen_range(1.0..1.2)])
+            .collect();
+        let d1 = spread_among(&d0, &p, &draws, 6, 9, 1).unwrap();
+        assert_eq!(d1.points.len(), 16);
+        assert!(matches!(
+            d1.rounds[1],
+            Round::Added {
+                n: 6,
+                fill: Fill::PosteriorSpread,
+                ..
+            }
+        ));
+        let new: Vec<&Vec<f64>> = d1.points[10..].iter().map(|q| &q.values).collect();
+        for v in &new {
+            assert!(draws.contains(v), "{v:?} is not one of the draws");
+        }
+        let mut sorted = new.clone();
+        sorted.dedup();
+        assert_eq!(sorted.len(), 6);
+        // Greedy maximin: the picks are spread over the cloud, not bunched — their
+        // smallest pairwise distance exceeds the cloud's typical nearest-neighbour
+        // spacing (0.2 / sqrt(200) ≈ 0.014) many times over.
+        let mut dmin = f64::INFINITY;
+        for i in 0..6 {
+            for j in 0..i {
+                let d2: f64 = (0..2).map(|k| (new[i][k] - new[j][k]).powi(2)).sum();
+                dmin = dmin.min(d2.sqrt());
+            }
+        }
+        assert!(dmin > 0.05, "picks bunched: min distance {dmin}");
+        assert_eq!(
+            spread_among(&d0, &p, &draws, 0, 9, 1).unwrap_err(),
+            DesignError::NothingToAdd
+        );
     }
 
     #[test]

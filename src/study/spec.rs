@@ -49,6 +49,43 @@ pub struct ChecksSpec {
     /// posterior mean, compared with the surrogate there. Default 0 (none).
     #[serde(default)]
     pub confirmation_runs: usize,
+    /// Sequential refinement (`assay refine`, and `assay all` when present): add runs
+    /// where the posterior lives until the surrogate agrees with the simulator there.
+    #[serde(default)]
+    pub refine: Option<RefineSpec>,
+}
+
+/// `checks.refine`: rounds of new runs among the posterior draws.
+#[derive(Debug, Clone, Deserialize, PartialEq, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct RefineSpec {
+    /// At most this many rounds (each: add, run, fit, calibrate, confirm). Default 2.
+    #[serde(default = "default_refine_rounds")]
+    pub rounds: usize,
+    /// Points added per round. Default 10.
+    #[serde(default = "default_refine_add")]
+    pub add: usize,
+    /// Share of each round's points placed over the whole box (gap filling) rather
+    /// than among the posterior draws, so the surrogate stays sane elsewhere. Default 0.2.
+    #[serde(default = "default_refine_global")]
+    pub global_share: f64,
+    /// Stop when every experiment's confirmation RMSE is at most this many noise sds.
+    /// Default 0.5.
+    #[serde(default = "default_refine_tolerance")]
+    pub tolerance: f64,
+}
+
+fn default_refine_rounds() -> usize {
+    2
+}
+fn default_refine_add() -> usize {
+    10
+}
+fn default_refine_global() -> f64 {
+    0.2
+}
+fn default_refine_tolerance() -> f64 {
+    0.5
 }
 
 #[derive(Debug, Clone, Deserialize, JsonSchema)]

@@ -163,6 +163,37 @@ pub struct Study {
     pub calibration: CalibrationParams,
     /// `checks.confirmation_runs`: posterior draws to confirm with the simulator.
     pub confirmation_runs: usize,
+    /// `checks.refine` (checked), when present.
+    pub refine: Option<RefineParams>,
+}
+
+/// `checks.refine`, checked.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct RefineParams {
+    /// At most this many rounds (≥ 1).
+    pub rounds: usize,
+    /// Points per round (≥ 1).
+    pub add: usize,
+    /// Share of the points over the whole box, in [0, 1].
+    pub global_share: f64,
+    /// Stop when every confirmation RMSE / noise sd is at most this (> 0).
+    pub tolerance: f64,
+}
+
+impl RefineParams {
+    /// Defaults of `checks.refine` (used by `assay refine` without the key).
+    pub const DEFAULT: Self = Self {
+        rounds: 2,
+        add: 10,
+        global_share: 0.2,
+        tolerance: 0.5,
+    };
+
+    /// Points per round over the whole box: the share of `add`, rounded; the rest go
+    /// among the posterior draws.
+    pub fn n_global(&self) -> usize {
+        ((self.add as f64 * self.global_share).round() as usize).min(self.add)
+    }
 }
 
 impl Study {
@@ -767,6 +798,32 @@ pub fn parse(
             );
         }
     }
+    let refine = spec.checks.refine.as_ref().map(|r| {
+        if r.rounds == 0 {
+            c.err("checks.refine.rounds", "rounds must be at least 1");
+        }
+        if r.add == 0 {
+            c.err("checks.refine.add", "add must be at least 1");
+        }
+        if !(0.0..=1.0).contains(&r.global_share) {
+            c.err(
+                "checks.refine.global_share",
+                format!("global_share {} must lie in [0, 1]", r.global_share),
+            );
+        }
+        if !(r.tolerance > 0.0 && r.tolerance.is_finite()) {
+            c.err(
+                "checks.refine.tolerance",
+                format!("tolerance {} must be a positive number", r.tolerance),
+            );
+        }
+        RefineParams {
+            rounds: r.rounds,
+            add: r.add,
+            global_share: r.global_share,
+            tolerance: r.tolerance,
+        }
+    });
     let prior_from = cal.prior_from.as_ref().and_then(|p| {
         let path = dir.join(p);
         if !path.is_file() {
@@ -835,6 +892,7 @@ pub fn parse(
             hyperprior: spec.surrogate.hyperprior,
         },
         confirmation_runs: spec.checks.confirmation_runs,
+        refine,
         calibration: CalibrationParams {
             chains: cal.chains,
             warmup: cal.warmup,
