@@ -103,20 +103,27 @@ fn corpus() -> PathBuf {
     common::repo_root().join("tests").join("corpus")
 }
 
-/// `assay validate study.yaml` inside `case_dir`: exit code and stderr.
-fn validate(case_dir: &Path, runs: &Path) -> (Option<i32>, String) {
+/// `assay validate study.yaml` inside `dir`: exit code, stdout and stderr.
+fn validate(dir: &Path, runs: &Path) -> (Option<i32>, String, String) {
     let out = Command::new(env!("CARGO_BIN_EXE_assay"))
         .arg("--runs")
         .arg(runs)
         .arg("--quiet")
         .args(["validate", "study.yaml"])
-        .current_dir(case_dir)
+        .current_dir(dir)
         .output()
         .expect("assay starts");
-    (
-        out.status.code(),
-        String::from_utf8_lossy(&out.stderr).into_owned(),
-    )
+    let text = |b: &[u8]| String::from_utf8_lossy(b).into_owned();
+    (out.status.code(), text(&out.stdout), text(&out.stderr))
+}
+
+/// A temporary copy of case `case`'s study and template (its data is for the caller).
+fn copy_of(case: &str) -> tempfile::TempDir {
+    let dir = tempfile::tempdir().expect("temp folder");
+    for f in ["study.yaml", "deck.tmpl", "field-A.csv"] {
+        std::fs::copy(corpus().join(case).join(f), dir.path().join(f)).expect("copy");
+    }
+    dir
 }
 
 #[test]
@@ -137,7 +144,7 @@ fn every_broken_input_is_refused_with_exit_2_and_its_message() {
     let runs = tempfile::tempdir().expect("temp folder");
     let mut failures = Vec::new();
     for (case, expected) in CASES {
-        let (code, stderr) = validate(&corpus().join(case), runs.path());
+        let (code, _, stderr) = validate(&corpus().join(case), runs.path());
         let first = stderr
             .lines()
             .find(|l| l.starts_with("error: "))
@@ -167,16 +174,12 @@ fn every_broken_input_is_refused_with_exit_2_and_its_message() {
 fn the_corpus_base_study_is_valid() {
     // The cases are the base study with one thing broken. Without a valid base, a case
     // could fail for a reason other than the one it is named for.
-    let dir = tempfile::tempdir().expect("temp folder");
-    let from = corpus().join("range-reversed");
-    for f in ["study.yaml", "field-A.csv", "deck.tmpl"] {
-        std::fs::copy(from.join(f), dir.path().join(f)).expect("copy");
-    }
+    let dir = copy_of("range-reversed");
     let study = dir.path().join("study.yaml");
     let text = std::fs::read_to_string(&study).expect("study");
     let fixed = common::edit(&text, "range: [250.0, 150.0]", "range: [150.0, 250.0]");
     std::fs::write(&study, fixed).expect("write");
-    let (code, stderr) = validate(dir.path(), &dir.path().join("runs"));
+    let (code, _, stderr) = validate(dir.path(), &dir.path().join("runs"));
     assert_eq!(code, Some(0), "{stderr}");
 }
 
@@ -184,30 +187,14 @@ fn the_corpus_base_study_is_valid() {
 fn duplicated_x_values_in_field_data_are_replicates_not_an_error() {
     // DESIGN.md, "Field data": repeated x values are replicates. The corpus therefore
     // holds a duplicated *column* (ambiguous), not duplicated x values (valid).
-    let dir = tempfile::tempdir().expect("temp folder");
-    let from = corpus().join("data-duplicated-column");
-    for f in ["study.yaml", "deck.tmpl"] {
-        std::fs::copy(from.join(f), dir.path().join(f)).expect("copy");
-    }
+    let dir = copy_of("data-duplicated-column");
     std::fs::write(
         dir.path().join("field-A.csv"),
         "station,deflection\n0.5,1.02\n0.5,1.04\n1.0,2.11\n",
     )
     .expect("write");
-    let out = Command::new(env!("CARGO_BIN_EXE_assay"))
-        .arg("--runs")
-        .arg(dir.path().join("runs"))
-        .args(["validate", "study.yaml"])
-        .current_dir(dir.path())
-        .output()
-        .expect("assay starts");
-    let stdout = String::from_utf8_lossy(&out.stdout);
-    assert_eq!(
-        out.status.code(),
-        Some(0),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
+    let (code, stdout, stderr) = validate(dir.path(), &dir.path().join("runs"));
+    assert_eq!(code, Some(0), "{stderr}");
     assert!(
         stdout.contains("3 data rows at 2 output locations"),
         "{stdout}"

@@ -133,13 +133,10 @@ fn a_read_only_campaign_folder_is_refused_clearly_and_left_as_it_was() {
         }
     }
 
-    let out = env
-        .assay(["run".as_ref(), study.as_os_str()])
-        .output()
-        .unwrap();
-    let stderr = String::from_utf8_lossy(&out.stderr);
+    let out = env.call("run", &study);
+    let stderr = &out.stderr;
     // Not bad input: the study is fine, the folder is not (exit code 1).
-    assert_eq!(out.status.code(), Some(1), "{stderr}");
+    assert_eq!(out.code, Some(1), "{stderr}");
     let want = if root {
         "Read-only file system"
     } else {
@@ -156,21 +153,10 @@ fn a_read_only_campaign_folder_is_refused_clearly_and_left_as_it_was() {
     assert_eq!(records(&campaign), before, "a record changed");
 
     // Reading a read-only campaign works: status and verify write nothing.
-    let out = env
-        .assay(["status".as_ref(), study.as_os_str()])
-        .output()
-        .unwrap();
-    assert_eq!(
-        out.status.code(),
-        Some(0),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    let out = env
-        .assay(["verify".as_ref(), study.as_os_str()])
-        .output()
-        .unwrap();
-    let stdout = String::from_utf8_lossy(&out.stdout);
+    let out = env.call("status", &study);
+    assert_eq!(out.code, Some(0), "{}", out.stderr);
+    let out = env.call("verify", &study);
+    let stdout = &out.stdout;
     assert!(stdout.contains("runs       ok"), "{stdout}");
 
     if !root {
@@ -203,12 +189,9 @@ fn a_full_campaign_folder_fails_clearly_corrupts_nothing_and_resumes() {
         let _ = f.sync_all();
     }
 
-    let out = env
-        .assay(["run".as_ref(), study.as_os_str()])
-        .output()
-        .unwrap();
-    let stderr = String::from_utf8_lossy(&out.stderr);
-    assert_eq!(out.status.code(), Some(1), "{stderr}");
+    let out = env.call("run", &study);
+    let stderr = &out.stderr;
+    assert_eq!(out.code, Some(1), "{stderr}");
     let error = stderr
         .lines()
         .find(|l| l.starts_with("error: "))
@@ -239,17 +222,11 @@ fn a_full_campaign_folder_fails_clearly_corrupts_nothing_and_resumes() {
     env.assay(["run".as_ref(), study.as_os_str()])
         .assert()
         .success();
-    let out = env
-        .assay(["verify".as_ref(), study.as_os_str()])
-        .output()
-        .unwrap();
-    let stdout = String::from_utf8_lossy(&out.stdout);
-    assert_eq!(out.status.code(), Some(0), "{stdout}");
-    let out = env
-        .assay(["status".as_ref(), study.as_os_str()])
-        .output()
-        .unwrap();
-    let stdout = String::from_utf8_lossy(&out.stdout);
+    let out = env.call("verify", &study);
+    let stdout = &out.stdout;
+    assert_eq!(out.code, Some(0), "{stdout}");
+    let out = env.call("status", &study);
+    let stdout = &out.stdout;
     let done = format!("{}", N_POINTS + 6);
     assert!(
         stdout
@@ -259,19 +236,24 @@ fn a_full_campaign_folder_fails_clearly_corrupts_nothing_and_resumes() {
     );
 }
 
-#[test]
-fn a_yaml_alias_bomb_in_a_study_is_refused_with_a_message() {
-    let env = Env::new();
-    // Nine levels of nine aliases: 9⁹ ≈ 3.9e8 strings once expanded (the "billion
-    // laughs" shape, common practice for this test), inside a prior, which the study
-    // reader takes apart as a free YAML value.
-    let mut chain = vec!["&a0 [lol, lol, lol, lol, lol, lol, lol, lol, lol]".to_string()];
+/// Nine levels of nine aliases, `&a0 [leaf × 9]`, `&a1 [*a0 × 9]` … `&a8`: 9⁹ ≈ 3.9e8
+/// leaves once expanded (the "billion laughs" shape, common practice for this test).
+fn alias_chain(leaf: &str) -> Vec<String> {
+    let mut chain = vec![format!("&a0 [{}]", [leaf; 9].join(", "))];
     for i in 1..9 {
         chain.push(format!(
             "&a{i} [{}]",
             vec![format!("*a{}", i - 1); 9].join(", ")
         ));
     }
+    chain
+}
+
+#[test]
+fn a_yaml_alias_bomb_in_a_study_is_refused_with_a_message() {
+    let env = Env::new();
+    // Inside a prior, which the study reader takes apart as a free YAML value.
+    let chain = alias_chain("lol");
     let text = common::edit(
         &env.minimal_study("ok"),
         "    range: [0.0, 1.0]\n",
@@ -281,12 +263,9 @@ fn a_yaml_alias_bomb_in_a_study_is_refused_with_a_message() {
         ),
     );
     let study = env.write_study_text(&text);
-    let out = env
-        .assay(["run".as_ref(), study.as_os_str()])
-        .output()
-        .unwrap();
-    let stderr = String::from_utf8_lossy(&out.stderr);
-    assert_eq!(out.status.code(), Some(2), "{stderr}");
+    let out = env.call("run", &study);
+    let stderr = &out.stderr;
+    assert_eq!(out.code, Some(2), "{stderr}");
     assert!(
         stderr.contains("the YAML expands too far through its aliases"),
         "{stderr}"
@@ -296,14 +275,7 @@ fn a_yaml_alias_bomb_in_a_study_is_refused_with_a_message() {
 #[test]
 fn a_yaml_alias_bomb_from_a_simulator_is_an_error_not_a_hang() {
     // A simulator's YAML output goes through the same reader: the same guard holds.
-    let mut text = "a0: &a0 [1, 1, 1, 1, 1, 1, 1, 1, 1]\n".to_string();
-    for i in 1..9 {
-        text.push_str(&format!(
-            "a{i}: &a{i} [{}]\n",
-            vec![format!("*a{}", i - 1); 9].join(", ")
-        ));
-    }
-    text.push_str("y: *a8\n");
+    let text = format!("all: [{}]\ny: *a8\n", alias_chain("1").join(", "));
     let e = assay::runs::parse::parse_output(
         &text,
         assay::study::OutputFormat::Yaml,
@@ -331,12 +303,9 @@ fn a_100_mb_study_file_is_refused_with_a_message() {
         }
     }
     assert!(std::fs::metadata(&path).unwrap().len() >= 100 << 20);
-    let out = env
-        .assay(["validate".as_ref(), path.as_os_str()])
-        .output()
-        .unwrap();
-    let stderr = String::from_utf8_lossy(&out.stderr);
-    assert_eq!(out.status.code(), Some(2), "{stderr}");
+    let out = env.call("validate", &path);
+    let stderr = &out.stderr;
+    assert_eq!(out.code, Some(2), "{stderr}");
     assert!(
         stderr.contains("the study file is larger than 1024 KiB"),
         "{stderr}"

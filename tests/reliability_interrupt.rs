@@ -7,6 +7,8 @@
 //! the kill is adopted, not repeated), and `assay verify` finds the records consistent
 //! with the output files at the end.
 
+mod common;
+
 use rand::{Rng, SeedableRng};
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
@@ -68,15 +70,10 @@ design: {{method: lhs, points: {N_POINTS}, seed: 5}}
     path
 }
 
+/// `assay --runs DIR/runs --quiet`, its output discarded.
 fn assay(dir: &Path) -> Command {
-    let mut c = Command::new(env!("CARGO_BIN_EXE_assay"));
-    c.arg("--runs")
-        .arg(dir.join("runs"))
-        .arg("--quiet")
-        .current_dir(dir)
-        .stdin(Stdio::null())
-        .stdout(Stdio::null())
-        .stderr(Stdio::null());
+    let mut c = common::assay_at(dir);
+    c.stdout(Stdio::null()).stderr(Stdio::null());
     c
 }
 

@@ -173,17 +173,6 @@ fn design(env: &Env, study: &Path) {
         .success();
 }
 
-fn run(env: &Env, study: &Path) -> (Option<i32>, String) {
-    let out = env
-        .assay(["run".as_ref(), study.as_os_str()])
-        .output()
-        .expect("assay runs");
-    (
-        out.status.code(),
-        String::from_utf8_lossy(&out.stderr).into_owned(),
-    )
-}
-
 /// A folder outside the campaign, empty.
 fn outside(env: &Env) -> PathBuf {
     let p = env.path("outside");
@@ -204,7 +193,7 @@ fn a_point_folder_that_is_a_link_outside_is_refused_and_nothing_is_written_there
     let link = env.campaign().join("runs/p0001");
     std::fs::create_dir_all(link.parent().unwrap()).expect("runs folder");
     std::os::unix::fs::symlink(&out, &link).expect("symlink");
-    let (code, stderr) = run(&env, &study);
+    let common::Outcome { code, stderr, .. } = env.call("run", &study);
     assert_eq!(code, Some(1), "{stderr}");
     assert!(
         stderr.contains(&format!(
@@ -231,7 +220,7 @@ fn a_template_destination_behind_a_link_is_refused() {
     let folder = env.run_folder("p0001");
     std::fs::create_dir_all(&folder).expect("run folder");
     std::os::unix::fs::symlink(&out, folder.join("sub")).expect("symlink");
-    let (code, stderr) = run(&env, &study);
+    let common::Outcome { code, stderr, .. } = env.call("run", &study);
     assert_eq!(code, Some(1), "{stderr}");
     assert!(
         stderr.contains("/sub is a symbolic link; assay does not follow links"),
@@ -263,7 +252,7 @@ fn an_output_file_linking_outside_the_run_folder_is_not_read() {
     );
     let study = env.write_study_text(&text);
     design(&env, &study);
-    let (code, stderr) = run(&env, &study);
+    let common::Outcome { code, stderr, .. } = env.call("run", &study);
     assert_eq!(code, Some(3), "every run fails: {stderr}");
     let record = std::fs::read_to_string(env.run_record("p0001")).expect("run.yaml");
     let r: serde_yaml::Value = serde_yaml::from_str(&record).expect("record");
@@ -290,7 +279,7 @@ fn a_planted_stdout_link_is_replaced_not_written_through() {
     for f in ["stdout.txt", "stderr.txt"] {
         std::os::unix::fs::symlink(&victim, folder.join(f)).expect("symlink");
     }
-    let (code, stderr) = run(&env, &study);
+    let common::Outcome { code, stderr, .. } = env.call("run", &study);
     assert_eq!(code, Some(3), "{stderr}");
     assert_eq!(
         std::fs::read_to_string(&victim).expect("victim"),
@@ -316,7 +305,7 @@ fn a_design_point_id_that_would_climb_out_is_refused() {
         edit(&text, "id: p0001", "id: ../../../escaped"),
     )
     .expect("write");
-    let (code, stderr) = run(&env, &study);
+    let common::Outcome { code, stderr, .. } = env.call("run", &study);
     assert_eq!(code, Some(1), "{stderr}");
     assert!(
         stderr.contains(

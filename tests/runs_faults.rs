@@ -1,9 +1,12 @@
 //! The run manager under abuse, with real processes: kill -9 of `assay run` at random
 //! moments, two concurrent `assay run` on one campaign, and exact template rendering.
 
+mod common;
+
+use common::assay_at as assay;
 use rand::{Rng, SeedableRng};
 use std::path::{Path, PathBuf};
-use std::process::{Command, Stdio};
+use std::process::Stdio;
 use std::time::{Duration, Instant};
 
 /// A simulator that logs its start and end to a shared log, sleeps a little and writes
@@ -47,16 +50,6 @@ design: {{method: lhs, points: {points}, seed: 3}}
     let path = dir.join("study.yaml");
     std::fs::write(&path, study).unwrap();
     path
-}
-
-fn assay(dir: &Path) -> Command {
-    let mut c = Command::new(env!("CARGO_BIN_EXE_assay"));
-    c.arg("--runs")
-        .arg(dir.join("runs"))
-        .arg("--quiet")
-        .current_dir(dir)
-        .stdin(Stdio::null());
-    c
 }
 
 fn design(dir: &Path, study: &Path) {

@@ -6,10 +6,7 @@ use assay::study::FieldData;
 use libfuzzer_sys::fuzz_target;
 
 fuzz_target!(|bytes: &[u8]| {
-    let Some((&first, rest)) = bytes.split_first() else {
-        return;
-    };
-    let Ok(text) = std::str::from_utf8(rest) else {
+    let Some((first, text)) = assay_fuzz::switches_and_text(bytes) else {
         return;
     };
     let x = (first & 1 != 0).then_some("x");

@@ -8,10 +8,7 @@ use assay::study::OutputFormat;
 use libfuzzer_sys::fuzz_target;
 
 fuzz_target!(|bytes: &[u8]| {
-    let Some((&first, rest)) = bytes.split_first() else {
-        return;
-    };
-    let Ok(text) = std::str::from_utf8(rest) else {
+    let Some((first, text)) = assay_fuzz::switches_and_text(bytes) else {
         return;
     };
     let format = match first % 3 {

@@ -152,6 +152,41 @@ calibration: {{chains: 2, warmup: 100, draws: 100, seed: 3}}
     }
 }
 
+/// What one `assay` call left behind.
+pub struct Outcome {
+    pub code: Option<i32>,
+    pub stdout: String,
+    pub stderr: String,
+}
+
+impl Env {
+    /// `assay --runs <tmp>/runs --quiet COMMAND STUDY`, run to its end.
+    pub fn call(&self, command: &str, study: &Path) -> Outcome {
+        let out = self
+            .assay([command.as_ref(), study.as_os_str()])
+            .output()
+            .expect("assay runs");
+        let text = |b: &[u8]| String::from_utf8_lossy(b).into_owned();
+        Outcome {
+            code: out.status.code(),
+            stdout: text(&out.stdout),
+            stderr: text(&out.stderr),
+        }
+    }
+}
+
+/// `assay --runs DIR/runs --quiet`, run in `DIR` with stdin closed: for tests that
+/// spawn and kill assay themselves, outside the [`Env`] harness.
+pub fn assay_at(dir: &Path) -> std::process::Command {
+    let mut c = std::process::Command::new(env!("CARGO_BIN_EXE_assay"));
+    c.arg("--runs")
+        .arg(dir.join("runs"))
+        .arg("--quiet")
+        .current_dir(dir)
+        .stdin(std::process::Stdio::null());
+    c
+}
+
 /// The test simulator (absolute path).
 pub fn sim() -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR"))
