@@ -2,14 +2,9 @@
 # Run-manager overhead: N runs of a trivial simulator with 2 jobs, assay versus
 # `xargs -P 2` running the same command, wall time side by side (median of R repeats).
 # Not part of `make test`. Usage: benches/runs_vs_xargs.sh [N] [R]
-set -euo pipefail
 N=${1:-1000}
 R=${2:-3}
-root=$(cd "$(dirname "$0")/.." && pwd)
-assay="$root/target/release/assay"
-[ -x "$assay" ] || (cd "$root" && cargo build --release --bin assay)
-work=$(mktemp -d)
-trap 'rm -rf "$work"' EXIT
+. "$(dirname "$0")/common.sh"
 
 cat > "$work/sim.sh" <<'SIM'
 #!/bin/sh
@@ -30,7 +25,6 @@ experiments:
 design: {method: lhs, points: $N, seed: 1}
 YAML
 
-median() { sort -n | awk '{a[NR]=$1} END {print a[int((NR+1)/2)]}'; }
 t_assay=(); t_xargs=()
 for r in $(seq "$R"); do
   rm -rf "$work/runs" "$work/x"
