@@ -69,7 +69,7 @@ pub enum Command {
     Check(StudyArg),
     /// Surrogate mean and sd at given points (CSV to stdout or --out).
     #[command(
-        after_help = "Example:\n  assay predict models/cantilever/study.yaml --at points.csv --out predictions.csv\n\nPOINTS.csv has a header naming every parameter; the output has the parameters, then\nEXP.Y.mean and EXP.Y.sd per experiment and output (curves: EXP.Y@X.mean, EXP.Y@X.sd)."
+        after_help = "Example:\n  assay predict models/cantilever/study.yaml --at points.csv --out predictions.csv\n\nPOINTS.csv has a header naming every control (if any) and parameter; the output has them, then\nEXP.Y.mean and EXP.Y.sd per experiment and output (curves: EXP.Y@X.mean, EXP.Y@X.sd)."
     )]
     Predict(PredictArgs),
     /// Self-contained HTML report with plots (report.html in the campaign folder).
@@ -131,7 +131,7 @@ pub struct StudyArg {
 pub struct PredictArgs {
     #[command(flatten)]
     pub study: StudyArg,
-    /// CSV of points: a header naming every parameter, one point per row.
+    /// CSV of points: a header naming every control and parameter, one point per row.
     #[arg(long, value_name = "POINTS.csv")]
     pub at: PathBuf,
     /// Write the predictions here instead of stdout.

@@ -86,28 +86,35 @@ pub enum DesignOutcome {
 /// Why an existing design does not fit the study, if it does not.
 pub(crate) fn design_mismatch(study: &Study, existing: &Design) -> Option<String> {
     let s = &study.design;
-    if existing.names != study.parameter_names() {
+    let names = study.design_variable_names();
+    if existing.names != names {
+        let what = if study.controls.is_empty() {
+            "parameters"
+        } else {
+            "controls and parameters"
+        };
         return Some(format!(
-            "its parameters {:?} differ from the study's {:?}",
-            existing.names,
-            study.parameter_names()
+            "its {what} {:?} differ from the study's {:?}",
+            existing.names, names
         ));
     }
     // Points added later (`assay design --add`) do not count: the first round is what
-    // `design.points` asked for.
+    // `design.points` asked for (times the field conditions with `controls: from_data`).
     let n0 = existing.initial_size();
+    let asked = s.points * s.conditions.as_ref().map_or(1, Vec::len);
     if existing.method != s.method
         || existing.seed != s.seed
-        || n0 != s.points
+        || n0 != asked
         || existing.space != s.space
     {
         return Some(format!(
             "it was made with method {:?}, seed {}, {} points, space {:?}; the study asks for {:?}, seed {}, {} points, space {:?}",
-            existing.method, existing.seed, n0, existing.space, s.method, s.seed, s.points, s.space
+            existing.method, existing.seed, n0, existing.space, s.method, s.seed, asked, s.space
         ));
     }
+    let vars = study.design_variables();
     for p in &existing.points {
-        for (v, par) in p.values.iter().zip(&study.parameters) {
+        for (v, par) in p.values.iter().zip(&vars) {
             if *v < par.lo || *v > par.hi {
                 return Some(format!(
                     "point {} has {} = {v} outside the range [{}, {}]",
@@ -145,7 +152,7 @@ pub fn write_design(c: &Campaign, force: bool) -> Result<(Design, DesignOutcome)
     c.hash_study_inputs(&mut clock)?;
     clock.study_parts(audit::design_parts(&c.study));
     clock.seed("design", c.study.design.seed);
-    let d = design::generate(&c.study.parameters, &c.study.design)
+    let d = design::generate(&c.study.design_variables(), &c.study.design)
         .map_err(|e| InputError(format!("cannot make the design: {e}")))?;
     write_record(
         &path,
@@ -179,7 +186,13 @@ pub fn augment_design(c: &Campaign, n: usize) -> Result<Design> {
         ))
         .into());
     }
-    let d = design::augment(&existing, &c.study.parameters, n)
+    if c.study.design.conditions.is_some() {
+        return Err(InputError(
+            "cannot add points to a `design.controls: from_data` design yet: enlarge `design.points` (a new design), or use `design.controls: joint`".into(),
+        )
+        .into());
+    }
+    let d = design::augment(&existing, &c.study.design_variables(), n)
         .map_err(|e| InputError(format!("cannot add points: {e}")))?;
     save_design(c, &d)?;
     Ok(d)
@@ -416,8 +429,8 @@ pub fn fit_stage(c: &Campaign) -> Result<(FittedSurrogate, BTreeMap<String, usiz
     clock.study_parts(audit::surrogate_parts(&c.study));
     let seed = c.study.surrogate.seed;
     clock.seed("surrogate", seed);
-    let fitted = fit_surrogate(&set, &c.study.parameters, c.study.surrogate, seed)?;
-    let mut body = SurrogateBody::from_fitted(&fitted, &c.study.parameter_names());
+    let fitted = fit_surrogate(&set, &c.study.design_variables(), c.study.surrogate, seed)?;
+    let mut body = SurrogateBody::from_fitted(&fitted, &c.study.design_variable_names());
     for e in &mut body.experiments {
         e.n_excluded = excluded.get(&e.name).copied().unwrap_or(0);
     }
@@ -500,8 +513,14 @@ pub fn calibrate_stage(
     clock.input_named(SURROGATE_FILE, &c.path(SURROGATE_FILE))?;
     clock.study_parts(audit::posterior_parts(&c.study));
     let fitted = rec.body.to_fitted()?;
+    let emulators = c
+        .study
+        .experiments
+        .iter()
+        .map(|e| Ok(field_emulator(c, e, model_of(&fitted, &e.name)?)))
+        .collect::<Result<Vec<_>>>()?;
     let mut experiments: Vec<(&dyn Emulator, ExperimentLikelihood)> = Vec::new();
-    for e in &c.study.experiments {
+    for (e, em) in c.study.experiments.iter().zip(&emulators) {
         let model = model_of(&fitted, &e.name)?;
         let names = runs::value_names(&c.study, e);
         let have: Vec<String> = model.outputs.iter().map(|o| o.name.clone()).collect();
@@ -515,10 +534,7 @@ pub fn calibrate_stage(
             .into());
         }
         let targets = e.data.targets(c.study.simulator.output.y.len());
-        experiments.push((
-            model as &dyn Emulator,
-            ExperimentLikelihood::new(e, &targets),
-        ));
+        experiments.push((em as &dyn Emulator, ExperimentLikelihood::new(e, &targets)));
     }
     let cal = &c.study.calibration;
     let params = SamplerParams {
@@ -534,11 +550,14 @@ pub fn calibrate_stage(
     // The training points are starting candidates for the chains (in design order,
     // each once): a posterior in a small corner of a wide box is found even when no
     // prior draw lands there.
+    // With controls, the parameters are the inputs after the controls.
+    let n_c = c.study.controls.len();
     let mut starts: Vec<Vec<f64>> = Vec::new();
     for m in &fitted.experiments {
         for x in &m.inputs {
-            if !starts.contains(x) {
-                starts.push(x.clone());
+            let theta = x[n_c..].to_vec();
+            if !starts.contains(&theta) {
+                starts.push(theta);
             }
         }
     }
@@ -616,6 +635,22 @@ fn read_if_exists<T: serde::de::DeserializeOwned>(
     }
 }
 
+/// What the likelihood and the checks evaluate for experiment `e`: its surrogate, at
+/// the field conditions when the study has controls.
+fn field_emulator<'a>(
+    c: &Campaign,
+    e: &crate::study::Experiment,
+    model: &'a crate::surrogate::ExperimentModel,
+) -> crate::surrogate::FieldEmulator<'a> {
+    let targets = e.data.targets(c.study.simulator.output.y.len());
+    crate::surrogate::FieldEmulator::new(
+        model,
+        c.study.controls.len(),
+        e.data.conditions(),
+        targets.iter().map(|t| (t.condition, t.value)).collect(),
+    )
+}
+
 /// The surrogate of experiment `name`, or say how to make it.
 fn model_of<'a>(
     fitted: &'a FittedSurrogate,
@@ -649,14 +684,14 @@ pub fn check_stage(c: &Campaign, confirm: Option<Confirm<'_>>) -> Result<crate::
     clock.seed("checks", seed);
     let mut experiments = Vec::new();
     for (k, e) in c.study.experiments.iter().enumerate() {
-        let model = model_of(&fitted, &e.name)?;
+        let model = field_emulator(c, e, model_of(&fitted, &e.name)?);
         let noise: Option<Vec<f64>> = samples
             .column(&format!("noise_sd.{}", e.name))
             .map(|j| rows.iter().map(|r| r[j]).collect());
         // Streams past those of the chains: the checks never share random numbers with
         // the sampler.
         let mut rng = crate::rng::stream(seed, CHECK_STREAM_BASE + k as u64);
-        let check = check_experiment(&c.study, e, model, &draws, noise.as_deref(), &mut rng)
+        let check = check_experiment(&c.study, e, &model, &draws, noise.as_deref(), &mut rng)
             .ok_or_else(|| {
                 InputError(format!(
                     "the surrogate's outputs of `{}` do not match its field data: run `assay all` to bring the records up to date",
@@ -666,6 +701,12 @@ pub fn check_stage(c: &Campaign, confirm: Option<Confirm<'_>>) -> Result<crate::
         experiments.push(check);
     }
     let confirmation = match confirm {
+        Some(cf) if cf.n > 0 && !c.study.controls.is_empty() => {
+            return Err(InputError(
+                "confirmation runs and refinement are not available yet for studies with `controls`: set checks.confirmation_runs to 0 and use `assay design --add`".into(),
+            )
+            .into())
+        }
         Some(cf) if cf.n > 0 => {
             let conf = confirm_runs(c, &fitted, &samples, &draws, cf)?;
             for p in &conf.points {
@@ -1050,11 +1091,20 @@ pub fn report_stage(c: &Campaign, out: &Path) -> Result<()> {
             let noise: Option<Vec<f64>> = samples
                 .column(&format!("noise_sd.{}", e.name))
                 .map(|j| rows.iter().map(|r| r[j]).collect());
+            // With controls the emulator gives the field vector (one entry per target)
+            // when the surrogate's outputs are the runs' values.
+            let n_outputs = if c.study.controls.is_empty() {
+                model.outputs.len()
+            } else if model.outputs.len() == runs::value_names(&c.study, e).len() {
+                e.data.targets(c.study.simulator.output.y.len()).len()
+            } else {
+                0
+            };
             match compute::predictive(
                 &c.study,
                 e,
-                model,
-                model.outputs.len(),
+                &field_emulator(c, e, model),
+                n_outputs,
                 &draws,
                 noise.as_deref(),
             ) {
@@ -1150,13 +1200,13 @@ pub fn parse_points(text: &str, file: &Path, names: &[String]) -> Result<Vec<Vec
     Ok(out)
 }
 
-/// Surrogate mean and sd at `points`, as CSV: the parameters, then for every experiment
+/// Surrogate mean and sd at `points`, as CSV: the controls and parameters, then for every experiment
 /// and output value `EXP.Y.mean`, `EXP.Y.sd` (curves: `EXP.Y@X.mean`, `EXP.Y@X.sd`).
 /// Also returns how many points lie outside the parameter box (extrapolation).
 pub fn predict_csv(c: &Campaign, points: &[Vec<f64>]) -> Result<(Vec<u8>, usize)> {
     use rayon::prelude::*;
     let fitted = read_surrogate(c)?.body.to_fitted()?;
-    let names = c.study.parameter_names();
+    let names = c.study.design_variable_names();
     let mut header = names.clone();
     for e in &fitted.experiments {
         for o in &e.outputs {
@@ -1182,7 +1232,7 @@ pub fn predict_csv(c: &Campaign, points: &[Vec<f64>]) -> Result<(Vec<u8>, usize)
         .iter()
         .filter(|p| {
             p.iter()
-                .zip(&c.study.parameters)
+                .zip(&c.study.design_variables())
                 .any(|(v, par)| *v < par.lo || *v > par.hi)
         })
         .count();

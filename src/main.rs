@@ -176,12 +176,28 @@ fn print_summary(s: &Study, c: &Campaign) {
             p.prior
         );
     }
+    if !s.controls.is_empty() {
+        out!("  controls:");
+        for p in &s.controls {
+            let unit = p
+                .unit
+                .as_deref()
+                .map(|u| format!(" {u}"))
+                .unwrap_or_default();
+            out!("    {:<12} [{}, {}]{unit}", p.name, p.lo, p.hi);
+        }
+    }
     out!("  simulator: {}", s.simulator.command.join(" "));
     out!("  experiments:");
     for e in &s.experiments {
         let st = e.data.stations();
+        let conditions = if s.controls.is_empty() {
+            String::new()
+        } else {
+            format!(" and {} conditions", e.data.conditions().len())
+        };
         out!(
-            "    {:<12} {} data rows at {} output locations, data {}",
+            "    {:<12} {} data rows at {} output locations{conditions}, data {}",
             e.name,
             e.data.rows.len(),
             st.len(),
@@ -655,7 +671,7 @@ fn execute(cli: &Cli) -> Result<bool> {
         Command::Predict(a) => {
             let text = std::fs::read_to_string(&a.at)
                 .map_err(|e| InputError(format!("cannot read {}: {e}", a.at.display())))?;
-            let points = campaign::parse_points(&text, &a.at, &c.study.parameter_names())?;
+            let points = campaign::parse_points(&text, &a.at, &c.study.design_variable_names())?;
             let (bytes, outside) = campaign::predict_csv(&c, &points)?;
             if outside > 0 && !cli.quiet {
                 eprintln!("warning: {outside} of {} points lie outside the parameter box: the surrogate extrapolates there", points.len());

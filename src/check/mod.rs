@@ -45,6 +45,10 @@ pub const PPP_ALPHA: f64 = 0.01;
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct MeasurementCheck {
     pub quantity: String,
+    /// The control values of the measurement's condition, in the study's `controls`
+    /// order (absent without controls).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub controls: Vec<f64>,
     /// The curve's x (absent for scalar outputs).
     pub x: Option<f64>,
     pub observed: f64,
@@ -235,6 +239,7 @@ pub fn check_experiment<R: Rng + ?Sized>(
     rng: &mut R,
 ) -> Option<ExperimentCheck> {
     let targets = e.data.targets(study.simulator.output.y.len());
+    let conditions = e.data.conditions();
     if draws.is_empty() {
         return None;
     }
@@ -295,6 +300,7 @@ pub fn check_experiment<R: Rng + ?Sized>(
         let t = &targets[*i];
         measurements.push(MeasurementCheck {
             quantity: study.simulator.output.y[t.quantity].clone(),
+            controls: conditions[t.condition].clone(),
             x: t.x,
             observed: *y,
             mean,

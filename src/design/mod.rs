@@ -189,6 +189,9 @@ fn sobol_balance_warning(n: usize) -> Option<String> {
 /// No parameters, fewer than 2 points, or for `sobol` more parameters than
 /// [`SOBOL_MAX_DIM`].
 pub fn generate(params: &[Parameter], spec: &DesignParams) -> Result<Design, DesignError> {
+    if let Some(conditions) = &spec.conditions {
+        return generate_at_conditions(params, spec, conditions);
+    }
     let (n, d) = (spec.points, params.len());
     if d == 0 {
         return Err(DesignError::NoParameters);
@@ -225,6 +228,56 @@ pub fn generate(params: &[Parameter], spec: &DesignParams) -> Result<Design, Des
         }],
         quality: Some(quality(unit.view())),
         warnings,
+    })
+}
+
+/// A design over the parameters (the variables after the controls, `params` holding the
+/// controls first), each point run at every one of the field `conditions`: the points
+/// are (condition, parameter point) pairs, parameter point by parameter point. The
+/// quality is that of the parameter points.
+fn generate_at_conditions(
+    params: &[Parameter],
+    spec: &DesignParams,
+    conditions: &[Vec<f64>],
+) -> Result<Design, DesignError> {
+    let n_c = conditions.first().map_or(0, Vec::len);
+    let inner = DesignParams {
+        conditions: None,
+        ..spec.clone()
+    };
+    let base = generate(&params[n_c..], &inner)?;
+    let mut points = Vec::with_capacity(base.points.len() * conditions.len());
+    for p in &base.points {
+        for c in conditions {
+            points.push(DesignPoint {
+                id: point_id(points.len()),
+                values: c.iter().chain(&p.values).copied().collect(),
+            });
+        }
+    }
+    let n = points.len();
+    Ok(Design {
+        names: params.iter().map(|p| p.name.clone()).collect(),
+        points,
+        rounds: base
+            .rounds
+            .into_iter()
+            .map(|r| match r {
+                Round::Initial {
+                    method,
+                    seed,
+                    search,
+                    ..
+                } => Round::Initial {
+                    method,
+                    n,
+                    seed,
+                    search,
+                },
+                other => other,
+            })
+            .collect(),
+        ..base
     })
 }
 
@@ -434,6 +487,7 @@ mod tests {
             points,
             seed: 9,
             space: DesignSpace::Range,
+            conditions: None,
         }
     }
 

@@ -10,7 +10,9 @@ use super::spec::*;
 use std::collections::{BTreeMap, BTreeSet};
 use std::path::{Component, Path, PathBuf};
 
-pub use super::spec::{DesignMethod, DesignSpace, HyperpriorChoice, KernelChoice, MeanChoice};
+pub use super::spec::{
+    ControlDesign, DesignMethod, DesignSpace, HyperpriorChoice, KernelChoice, MeanChoice,
+};
 
 /// Placeholders assay provides itself; parameters and settings may not take these names.
 pub const RESERVED: [&str; 3] = ["run_dir", "run_id", "study_dir"];
@@ -98,6 +100,10 @@ pub struct DesignParams {
     pub points: usize,
     pub seed: u64,
     pub space: DesignSpace,
+    /// With `from_data`: the distinct field conditions of every experiment (first
+    /// appearance, experiments in order); each parameter point is run at each of them.
+    /// `None` for a joint design (or no controls).
+    pub conditions: Option<Vec<Vec<f64>>>,
 }
 
 /// Surrogate settings after defaults.
@@ -151,6 +157,9 @@ pub struct Study {
     /// The folder relative paths are resolved against.
     pub dir: PathBuf,
     pub parameters: Vec<Parameter>,
+    /// `controls`: test conditions, as variables with a uniform "prior" over their range
+    /// (empty when the study has none).
+    pub controls: Vec<Parameter>,
     pub simulator: Simulator,
     pub experiments: Vec<Experiment>,
     pub design: DesignParams,
@@ -208,6 +217,24 @@ impl Study {
     /// Names of the parameters, in order.
     pub fn parameter_names(&self) -> Vec<String> {
         self.parameters.iter().map(|p| p.name.clone()).collect()
+    }
+
+    /// What the design spans and the runs and the surrogate take as inputs: the
+    /// controls, then the parameters.
+    pub fn design_variables(&self) -> Vec<Parameter> {
+        self.controls
+            .iter()
+            .chain(&self.parameters)
+            .cloned()
+            .collect()
+    }
+
+    /// Names of [`Self::design_variables`].
+    pub fn design_variable_names(&self) -> Vec<String> {
+        self.design_variables()
+            .into_iter()
+            .map(|p| p.name)
+            .collect()
     }
 }
 
@@ -513,6 +540,60 @@ pub fn parse(
         });
     }
 
+    // Controls: names like parameters', distinct from them.
+    let mut controls = Vec::new();
+    for (i, p) in spec.controls.iter().enumerate() {
+        let key = format!("controls[{i}]");
+        if !placeholder::is_identifier(&p.name) {
+            c.err(
+                format!("{key}.name"),
+                format!(
+                    "`{}` is not a valid control name (expected [A-Za-z_][A-Za-z0-9_]*)",
+                    p.name
+                ),
+            );
+        } else if RESERVED.contains(&p.name.as_str()) {
+            c.err(
+                format!("{key}.name"),
+                format!("`{}` is reserved for the run folder placeholders", p.name),
+            );
+        } else if !seen.insert(p.name.clone()) {
+            c.err(
+                format!("{key}.name"),
+                format!(
+                    "control name `{}` is already a parameter or another control",
+                    p.name
+                ),
+            );
+        }
+        let [lo, hi] = p.range;
+        if !(lo.is_finite() && hi.is_finite()) {
+            c.err(
+                format!("{key}.range"),
+                format!("range [{lo}, {hi}] must be finite"),
+            );
+        } else if lo >= hi {
+            c.err(
+                format!("{key}.range"),
+                format!("range [{lo}, {hi}] is reversed or empty (expected [low, high] with low < high)"),
+            );
+        }
+        controls.push(Parameter {
+            name: p.name.clone(),
+            unit: p.unit.clone(),
+            lo,
+            hi,
+            prior: Prior::Uniform,
+        });
+    }
+    if spec.controls.is_empty() && spec.design.controls == ControlDesign::FromData {
+        c.err(
+            "design.controls",
+            "`from_data` places the controls, but the study has no `controls`",
+        );
+    }
+    let control_names: Vec<String> = controls.iter().map(|p| p.name.clone()).collect();
+
     // Simulator.
     let sim = &spec.simulator;
     if sim.command.is_empty() || sim.command[0].is_empty() {
@@ -610,10 +691,12 @@ pub fn parse(
                     format!("{key}.settings.{k}"),
                     format!("`{k}` is not a valid setting name (expected [A-Za-z_][A-Za-z0-9_]*)"),
                 );
-            } else if parameters.iter().any(|p| &p.name == k) || RESERVED.contains(&k.as_str()) {
+            } else if parameters.iter().chain(&controls).any(|p| &p.name == k)
+                || RESERVED.contains(&k.as_str())
+            {
                 c.err(
                     format!("{key}.settings.{k}"),
-                    format!("setting `{k}` clashes with a parameter or run placeholder"),
+                    format!("setting `{k}` clashes with a parameter, control or run placeholder"),
                 );
             }
             let text = match v {
@@ -659,8 +742,35 @@ pub fn parse(
                 None
             }
             Ok(text) => {
-                match FieldData::parse(&text, sim.output.x.as_deref(), &sim.output.y, sd_col) {
-                    Ok(d) => Some(d),
+                match FieldData::parse(
+                    &text,
+                    &control_names,
+                    sim.output.x.as_deref(),
+                    &sim.output.y,
+                    sd_col,
+                ) {
+                    Ok(d) => {
+                        // A condition outside a control's range would make the
+                        // surrogate extrapolate.
+                        for r in &d.rows {
+                            for (v, p) in r.controls.iter().zip(&controls) {
+                                if !(p.lo..=p.hi).contains(v) {
+                                    c.err(
+                                        format!("{key}.data"),
+                                        format!(
+                                            "{}:{}: {} = {v} lies outside the control's range [{}, {}]",
+                                            data_path.display(),
+                                            r.line,
+                                            p.name,
+                                            p.lo,
+                                            p.hi
+                                        ),
+                                    );
+                                }
+                            }
+                        }
+                        Some(d)
+                    }
                     Err((line, msg)) => {
                         c.err(
                             format!("{key}.data"),
@@ -673,7 +783,11 @@ pub fn parse(
         };
 
         // Placeholders: every name must be known for this experiment.
-        let mut known: BTreeSet<String> = parameters.iter().map(|p| p.name.clone()).collect();
+        let mut known: BTreeSet<String> = parameters
+            .iter()
+            .chain(&controls)
+            .map(|p| p.name.clone())
+            .collect();
         known.extend(settings.keys().cloned());
         known.insert("run_dir".into());
         known.insert("run_id".into());
@@ -720,7 +834,27 @@ pub fn parse(
     }
 
     let d = &spec.design;
-    let points = d.points.unwrap_or(10 * parameters.len().max(1));
+    let from_data = !controls.is_empty() && d.controls == ControlDesign::FromData;
+    // Joint: 10 per design variable; from_data: 10 per parameter, each run at every
+    // field condition.
+    let points = d.points.unwrap_or(
+        10 * if from_data {
+            parameters.len().max(1)
+        } else {
+            (parameters.len() + controls.len()).max(1)
+        },
+    );
+    let conditions = from_data.then(|| {
+        let mut all: Vec<Vec<f64>> = Vec::new();
+        for e in &experiments {
+            for cond in e.data.conditions() {
+                if !all.contains(&cond) {
+                    all.push(cond);
+                }
+            }
+        }
+        all
+    });
     if points < 2 {
         c.err(
             "design.points",
@@ -860,6 +994,7 @@ pub fn parse(
         file: file.to_path_buf(),
         dir: dir.to_path_buf(),
         parameters,
+        controls,
         simulator: Simulator {
             command: sim.command.clone(),
             files,
@@ -879,6 +1014,7 @@ pub fn parse(
             points,
             seed: d.seed,
             space: d.space,
+            conditions,
         },
         jobs: spec.execution.jobs,
         backend: spec.execution.backend,
