@@ -67,7 +67,7 @@ const CASES: &[(&str, &str)] = &[
     ("range-infinite", "study.yaml:5: parameters[0].range: range [150, inf] must be finite"),
     ("range-nan", "study.yaml:5: parameters[0].range: range [NaN, 250] must be finite"),
     ("range-reversed", "study.yaml:5: parameters[0].range: range [250, 150] is reversed or empty (expected [low, high] with low < high)"),
-    ("setting-clashes-with-parameter", "study.yaml:22: experiments[0].settings.E: setting `E` clashes with a parameter or run placeholder"),
+    ("setting-clashes-with-parameter", "study.yaml:22: experiments[0].settings.E: setting `E` clashes with a parameter, control or run placeholder"),
     ("slurm-partition-newline", "study.yaml:27: execution.slurm.partition: must be one line"),
     ("study-is-a-folder", "study.yaml: cannot read the study file: it is a folder"),
     ("study-not-a-mapping", "study.yaml:1: invalid type: sequence, expected a mapping of keys"),

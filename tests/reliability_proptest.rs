@@ -189,10 +189,12 @@ proptest! {
     #[test]
     fn field_data_reader_survives_arbitrary_text(
         text in any::<String>(),
+        control in proptest::option::of("[a-z]{1,3}"),
         x in proptest::option::of("[a-z]{1,3}"),
         sd in proptest::option::of("[a-z]{1,3}"),
     ) {
-        let _ = FieldData::parse(&text, x.as_deref(), &names(&["y"]), sd.as_deref());
+        let controls: Vec<String> = control.into_iter().collect();
+        let _ = FieldData::parse(&text, &controls, x.as_deref(), &names(&["y"]), sd.as_deref());
     }
 
     #[test]
