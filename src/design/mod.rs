@@ -396,12 +396,12 @@ pub fn augment_at_conditions(
                     method,
                     n,
                     seed,
-                    ref search,
+                    search,
                 } => Round::Initial {
                     method,
                     n: n / m,
                     seed,
-                    search: search.clone(),
+                    search,
                 },
                 Round::Added {
                     n,
