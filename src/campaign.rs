@@ -186,14 +186,13 @@ pub fn augment_design(c: &Campaign, n: usize) -> Result<Design> {
         ))
         .into());
     }
-    if c.study.design.conditions.is_some() {
-        return Err(InputError(
-            "cannot add points to a `design.controls: from_data` design yet: enlarge `design.points` (a new design), or use `design.controls: joint`".into(),
-        )
-        .into());
+    let d = match &c.study.design.conditions {
+        Some(conditions) => {
+            design::augment_at_conditions(&existing, &c.study.design_variables(), conditions, n)
+        }
+        None => design::augment(&existing, &c.study.design_variables(), n),
     }
-    let d = design::augment(&existing, &c.study.design_variables(), n)
-        .map_err(|e| InputError(format!("cannot add points: {e}")))?;
+    .map_err(|e| InputError(format!("cannot add points: {e}")))?;
     save_design(c, &d)?;
     Ok(d)
 }

@@ -229,8 +229,9 @@ fn linear_in_the_parameters_matches_the_closed_form_posterior() {
     }
 }
 
-/// `design.controls: from_data` runs every parameter point at every field condition;
-/// a field condition outside the control's range is refused with file and line.
+/// `design.controls: from_data` runs every parameter point at every field condition
+/// (also the points of `--add`); a field condition outside the control's range is
+/// refused with file and line.
 #[test]
 fn from_data_design_and_conditions_outside_the_range() {
     let env = Env::new();
@@ -256,6 +257,19 @@ fn from_data_design_and_conditions_outside_the_range() {
     let temps: Vec<f64> = d.points.iter().map(|p| p["T"].as_f64().unwrap()).collect();
     assert_eq!(&temps[..4], &[10.0, 20.0, 10.0, 20.0]);
     assert_eq!(d.points[0]["A"], d.points[1]["A"]);
+    // `--add 2` adds two parameter points, each at both conditions, ids continuing.
+    env.assay(["design", "--add", "2"])
+        .arg(&study)
+        .assert()
+        .success();
+    let d2: D = serde_yaml::from_str(&env.read("runs/cond/design.yaml")).unwrap();
+    assert_eq!(d2.points.len(), 14);
+    assert_eq!(&d2.points[..10], &d.points[..]);
+    assert_eq!(d2.points[10]["id"].as_str(), Some("p0011"));
+    assert_eq!(d2.points[10]["A"], d2.points[11]["A"]);
+    assert_eq!(d2.points[10]["T"].as_f64(), Some(10.0));
+    assert_eq!(d2.points[11]["T"].as_f64(), Some(20.0));
+    assert_ne!(d2.points[10]["A"], d2.points[12]["A"]);
 
     env.write("field.csv", "T,y\n10,1.0\n75,2.0\n");
     let out = env.assay(["validate"]).arg(&study).output().unwrap();

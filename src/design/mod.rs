@@ -354,6 +354,103 @@ pub fn augment(design: &Design, params: &[Parameter], n_add: usize) -> Result<De
     Ok(out)
 }
 
+/// Add `n_add` parameter points to a design made at field `conditions`
+/// (`design.controls: from_data`, see [`generate`]), each run at every condition: the
+/// parameter points are extended as [`augment`] extends a design over the parameters
+/// alone (the same random stream and fill), then paired with the conditions.
+///
+/// # Errors
+/// As [`augment`]; also a design whose points are not parameter points × `conditions`.
+pub fn augment_at_conditions(
+    design: &Design,
+    vars: &[Parameter],
+    conditions: &[Vec<f64>],
+    n_add: usize,
+) -> Result<Design, DesignError> {
+    let n_c = conditions.first().map_or(0, Vec::len);
+    let m = conditions.len().max(1);
+    if design.points.len() % m != 0 {
+        return Err(DesignError::ParametersDiffer {
+            design: format!("{} points", design.points.len()),
+            study: format!("a multiple of the {m} field conditions"),
+        });
+    }
+    let params = &vars[n_c..];
+    // The design over the parameters alone: every m-th point, its parameter part.
+    let inner = Design {
+        names: params.iter().map(|p| p.name.clone()).collect(),
+        points: design
+            .points
+            .iter()
+            .step_by(m)
+            .map(|p| DesignPoint {
+                id: p.id.clone(),
+                values: p.values[n_c..].to_vec(),
+            })
+            .collect(),
+        rounds: design
+            .rounds
+            .iter()
+            .map(|r| match *r {
+                Round::Initial {
+                    method,
+                    n,
+                    seed,
+                    search,
+                } => Round::Initial {
+                    method,
+                    n: n / m,
+                    seed,
+                    search,
+                },
+                Round::Added {
+                    n,
+                    fill,
+                    seed,
+                    stream,
+                } => Round::Added {
+                    n: n / m,
+                    fill,
+                    seed,
+                    stream,
+                },
+            })
+            .collect(),
+        ..design.clone()
+    };
+    let grown = augment(&inner, params, n_add)?;
+    let first = design
+        .points
+        .iter()
+        .filter_map(|p| id_number(&p.id))
+        .max()
+        .unwrap_or(design.points.len());
+    let mut out = design.clone();
+    for p in &grown.points[inner.points.len()..] {
+        for c in conditions {
+            out.points.push(DesignPoint {
+                id: point_id(first + out.points.len() - design.points.len()),
+                values: c.iter().chain(&p.values).copied().collect(),
+            });
+        }
+    }
+    ensure_initial_round(&mut out, design);
+    if let Some(Round::Added {
+        fill, seed, stream, ..
+    }) = grown.rounds.last().cloned()
+    {
+        out.rounds.push(Round::Added {
+            n: n_add * m,
+            fill,
+            seed,
+            stream,
+        });
+    }
+    out.quality = grown.quality;
+    out.warnings = grown.warnings;
+    Ok(out)
+}
+
 /// Make sure `out` (a copy of `design` being extended) starts with its initial round:
 /// a record without rounds reads as one initial round of all its points.
 fn ensure_initial_round(out: &mut Design, design: &Design) {
