@@ -20,9 +20,9 @@ pub use error::{StudyError, StudyErrors};
 pub use locate::LineIndex;
 pub use spec::{schema_json, Backend, SlurmSpec};
 pub use validate::{
-    load, parse, CalibrationParams, DesignMethod, DesignParams, DesignSpace, Experiment,
-    FileTemplate, HyperpriorChoice, KernelChoice, MeanChoice, Noise, OutputFormat, OutputSpec,
-    Parameter, Prior, Simulator, Study, SurrogateParams,
+    load, parse, CalibrationParams, DesignMethod, DesignParams, DesignSpace, DiscrepancyParams,
+    Experiment, FileTemplate, HyperpriorChoice, KernelChoice, MeanChoice, Noise, OutputFormat,
+    OutputSpec, Parameter, Prior, Simulator, Study, SurrogateParams,
 };
 
 /// A study parsed from `text` whose every data file reads as `data` (unit tests of the
