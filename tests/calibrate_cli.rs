@@ -123,9 +123,18 @@ struct DiscrepancyRecord {
 }
 
 #[derive(Debug, Deserialize)]
+struct McseRecord {
+    mean: f64,
+    median: f64,
+    q025: f64,
+    q975: f64,
+}
+
+#[derive(Debug, Deserialize)]
 struct PosteriorWithDiscrepancy {
     #[serde(default)]
     discrepancy: BTreeMap<String, BTreeMap<String, DiscrepancyRecord>>,
+    mcse: BTreeMap<String, McseRecord>,
 }
 
 #[derive(Debug, Deserialize)]
@@ -203,6 +212,12 @@ fn discrepancy_is_sampled_reported_and_widens_the_predictive_checks() {
     let ell = d.length_scale.as_ref().expect("a curve has a length-scale");
     assert!(ell.prior.starts_with("lognormal(mu "), "{}", ell.prior);
     assert!(ell.posterior.as_ref().unwrap().mean > 0.0);
+    for m in p.mcse.values() {
+        assert!(
+            m.mean > 0.0 && m.median > 0.0 && m.q025 > 0.0 && m.q975 > 0.0,
+            "{m:?}"
+        );
+    }
     let samples = env.read("runs/tsim/posterior-samples.csv");
     assert_eq!(
         samples.lines().next().unwrap(),

@@ -16,7 +16,9 @@ mod prior;
 mod sampler;
 mod summary;
 
-pub use diagnostics::{ess_bulk, ess_tail, quantile_sorted, rhat, Diagnostics};
+pub use diagnostics::{
+    ess_bulk, ess_quantile, ess_tail, mcse_quantile, quantile_sorted, rhat, Diagnostics,
+};
 pub use discrepancy::{Discrepancy, Hyper, HyperKind};
 pub use likelihood::{
     ln_normal_factored_low_rank, ln_normal_low_rank, Emulator, ExperimentLikelihood,

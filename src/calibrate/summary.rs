@@ -1,6 +1,6 @@
 //! Posterior summaries and the `posterior.yaml` body.
 
-use super::diagnostics::{quantile_sorted, Diagnostics};
+use super::diagnostics::{mcse_quantile, quantile_sorted, Diagnostics};
 use super::discrepancy::{Hyper, HyperKind};
 use super::posterior::LogPosterior;
 use super::sampler::{Chain, SamplerParams, Termination};
@@ -35,6 +35,18 @@ pub struct Marginal {
 pub struct Mcse {
     /// MCSE of the posterior mean, sd / √(bulk ESS).
     pub mean: f64,
+    /// MCSE of the median and of the 2.5 % and 97.5 % quantiles ([`mcse_quantile`];
+    /// absent, NaN, in records made before they were added).
+    #[serde(default = "nan")]
+    pub median: f64,
+    #[serde(default = "nan")]
+    pub q025: f64,
+    #[serde(default = "nan")]
+    pub q975: f64,
+}
+
+fn nan() -> f64 {
+    f64::NAN
 }
 
 /// The posterior of one experiment's unknown noise.
@@ -194,7 +206,7 @@ fn correlation(rows: &[&Vec<f64>], d: usize) -> Vec<Vec<f64>> {
 /// [`Chain::noise_var`]).
 ///
 /// # Formula
-/// MCSE of a mean: sd / √ESS_bulk. Vehtari et al. (2021) use the ESS of the raw draws
+/// MCSE of a mean: sd / √ESS_bulk; of a quantile: [`mcse_quantile`]. Vehtari et al. (2021) use the ESS of the raw draws
 /// for the mean; the bulk ESS (of the rank-normalised draws) equals it for a normal
 /// posterior and is close for smooth unimodal ones.
 pub fn summarize(names: &[String], noise_names: &[String], chains: &[Chain]) -> PosteriorSummary {
@@ -231,6 +243,9 @@ pub fn summarize(names: &[String], noise_names: &[String], chains: &[Chain]) -> 
         diagnostic_warnings(&names[j], &diag, &mut warnings);
         mcse.push(Mcse {
             mean: m.sd / diag.ess_bulk.sqrt(),
+            median: mcse_quantile(&per_chain, 0.5),
+            q025: mcse_quantile(&per_chain, 0.025),
+            q975: mcse_quantile(&per_chain, 0.975),
         });
         diagnostics.push(diag);
     }
