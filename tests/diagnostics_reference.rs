@@ -31,14 +31,18 @@ struct Fixture {
     cases: Vec<Case>,
 }
 
-#[test]
-fn rhat_and_ess_match_arviz() {
+fn fixture() -> Fixture {
     let text = std::fs::read_to_string(concat!(
         env!("CARGO_MANIFEST_DIR"),
         "/tests/reference/diagnostics.json"
     ))
     .unwrap();
-    let f: Fixture = serde_json::from_str(&text).unwrap();
+    serde_json::from_str(&text).unwrap()
+}
+
+#[test]
+fn rhat_and_ess_match_arviz() {
+    let f = fixture();
     assert_eq!(f.cases.len(), 5);
     for c in &f.cases {
         let r = rhat(&c.chains);
@@ -67,12 +71,7 @@ fn rhat_and_ess_match_arviz() {
 
 #[test]
 fn quantile_mcse_matches_arviz() {
-    let text = std::fs::read_to_string(concat!(
-        env!("CARGO_MANIFEST_DIR"),
-        "/tests/reference/diagnostics.json"
-    ))
-    .unwrap();
-    let f: Fixture = serde_json::from_str(&text).unwrap();
+    let f = fixture();
     for c in &f.cases {
         assert_eq!(c.mcse_quantile.len(), 3, "{}", c.name);
         for (p, want) in &c.mcse_quantile {

@@ -282,20 +282,24 @@ mod tests {
         crate::study::parse_with_data(&text, "x,y,s\n0,1.5,0.2\n1,2.0,0.4\n1,9.0,0.2\n")
     }
 
+    /// The bands of `s`'s experiment at `draws`, with the drawn noise and discrepancy
+    /// sds `drawn`, against the surrogate [`Linear`] of `n_outputs` values.
+    fn bands(
+        s: &Study,
+        n_outputs: usize,
+        draws: &[Vec<f64>],
+        drawn: crate::check::DrawnVariances<'_>,
+    ) -> Option<Vec<PredictiveQuantity>> {
+        predictive(s, &s.experiments[0], &Linear, n_outputs, draws, drawn)
+    }
+
     #[test]
     fn predictive_bands_follow_the_law_of_total_variance() {
+        use crate::check::DrawnVariances;
         // Draws θ = 1 and 3: E[μ] = (2, 4), Var[μ] = (1, 4) (divisor n), E[s²] = (0.01, 0.04).
         let draws = vec![vec![1.0], vec![3.0]];
         let s = study("{sd: 0.1}");
-        let q = predictive(
-            &s,
-            &s.experiments[0],
-            &Linear,
-            2,
-            &draws,
-            Default::default(),
-        )
-        .unwrap();
+        let q = bands(&s, 2, &draws, DrawnVariances::default()).unwrap();
         assert_eq!(q.len(), 1);
         let p = &q[0].points;
         assert_eq!((p[0].x, p[1].x), (Some(0.0), Some(1.0)));
@@ -307,46 +311,33 @@ mod tests {
         // Within 2·sd_total: 1.5 (|−0.5| ≤ 2.02) and 2.0 (|−2| ≤ 4.03); 9.0 is not.
         assert!((band_coverage(&q).unwrap() - 2.0 / 3.0).abs() < 1e-12);
 
+        // A discrepancy: the mean of the drawn s_δ² (0.2² and 0.4²: 0.1) is added.
+        let disc = [vec![0.2], vec![0.4]];
+        let drawn = DrawnVariances {
+            noise_sd: None,
+            discrepancy_sd: Some(&disc),
+        };
+        let q = bands(&s, 2, &draws, drawn).unwrap();
+        assert!((q[0].points[0].sd_total - (1.02f64 + 0.1).sqrt()).abs() < 1e-12);
+
         // Per-row sds: the mean of the replicates' sd² at each station.
         let s = study("{sd_column: s}");
-        let q = predictive(
-            &s,
-            &s.experiments[0],
-            &Linear,
-            2,
-            &draws,
-            Default::default(),
-        )
-        .unwrap();
+        let q = bands(&s, 2, &draws, DrawnVariances::default()).unwrap();
         let p = &q[0].points;
         assert!((p[1].sd_total - (4.04f64 + (0.16 + 0.04) / 2.0).sqrt()).abs() < 1e-12);
 
         // Unknown noise: the mean of the drawn σ².
         let s = study("{unknown: {shape: 3, scale: 1}}");
-        let q = predictive(
-            &s,
-            &s.experiments[0],
-            &Linear,
-            2,
-            &draws,
-            crate::check::DrawnVariances {
-                noise_sd: Some(&[0.1, 0.3]),
-                discrepancy_sd: None,
-            },
-        )
-        .unwrap();
+        let drawn = DrawnVariances {
+            noise_sd: Some(&[0.1, 0.3]),
+            discrepancy_sd: None,
+        };
+        let q = bands(&s, 2, &draws, drawn).unwrap();
         assert!((q[0].points[0].sd_total - (1.01f64 + 0.05).sqrt()).abs() < 1e-12);
 
         // A surrogate with other outputs than the data (stale) gives no bands.
-        assert!(predictive(
-            &s,
-            &s.experiments[0],
-            &Linear,
-            3,
-            &draws,
-            Default::default()
-        )
-        .is_none());
+        assert!(bands(&s, 3, &draws, DrawnVariances::default()).is_none());
+        assert!(bands(&s, 2, &[], DrawnVariances::default()).is_none());
     }
 
     #[test]
