@@ -9,6 +9,7 @@ Examples:
   assay all models/cantilever/study.yaml          design, run, fit and calibrate, reusing up-to-date stages
   assay run --jobs 8 study.yaml                   run pending and failed runs, 8 at a time
   assay run --backend slurm --detach study.yaml   submit the runs to Slurm as job arrays and return
+  assay refine --rounds 2 --add 8 study.yaml      add runs where the posterior lives, refit, recalibrate
   assay verify models/cantilever/study.yaml       re-hash the records and their files, list stale stages
   assay report models/cantilever/study.yaml       write runs/cantilever/report.html
   assay schema > study.schema.json                JSON Schema of the study file, for editors
@@ -68,7 +69,7 @@ pub enum Command {
     Check(StudyArg),
     /// Surrogate mean and sd at given points (CSV to stdout or --out).
     #[command(
-        after_help = "Example:\n  assay predict models/cantilever/study.yaml --at points.csv --out predictions.csv\n\nPOINTS.csv has a header naming every parameter; the output has the parameters, then\nEXP.Y.mean and EXP.Y.sd per experiment and output (curves: EXP.Y@X.mean, EXP.Y@X.sd)."
+        after_help = "Example:\n  assay predict models/cantilever/study.yaml --at points.csv --out predictions.csv\n\nPOINTS.csv has a header naming every control (if any) and parameter; the output has them, then\nEXP.Y.mean and EXP.Y.sd per experiment and output (curves: EXP.Y@X.mean, EXP.Y@X.sd)."
     )]
     Predict(PredictArgs),
     /// Self-contained HTML report with plots (report.html in the campaign folder).
@@ -86,11 +87,28 @@ pub enum Command {
         after_help = "Example:\n  assay all models/cantilever/study.yaml\n\nA stage is redone when `assay verify` would call it stale or its record is missing or\nbroken: a change to the parameters or design settings makes a new design (finished runs\nof replaced points are kept under superseded/), new points are run, and the surrogate,\nposterior and report follow. A changed simulator definition is refused as in `assay run`."
     )]
     All(RunArgs),
+    /// Add runs where the posterior lives until the surrogate agrees with the simulator there.
+    #[command(
+        after_help = "Examples:\n  assay refine models/cantilever/study.yaml\n  assay refine --rounds 3 --add 8 study.yaml\n\nFirst brings every stage up to date (as `assay all`), then confirms the surrogate with\nthe simulator at posterior draws (checks.confirmation_runs, default 5). Each round adds\nN points: most among the posterior draws, spread out from the design's points, the\nrest (checks.refine.global_share) over the whole box; runs them, fits, calibrates and\nconfirms again. Stops early when every experiment's confirmation RMSE is at most\nchecks.refine.tolerance noise sds. The last confirmation runs are folded in by a final\nfit and calibration. Every round is recorded in refinement.yaml. Ctrl-C stops cleanly;\nthe same command goes on."
+    )]
+    Refine(RefineArgs),
     /// Print the JSON Schema (draft 2020-12) of the study file, for editors and linters.
     #[command(
         after_help = "Examples:\n  assay schema > study.schema.json\n\nThe schema is generated from the types the study reader uses, so it accepts exactly the\nkeys and forms `assay validate` accepts (value checks such as low < high are left to\n`assay validate`). With the YAML language server, put this first line in a study file:\n  # yaml-language-server: $schema=study.schema.json"
     )]
     Schema,
+}
+
+#[derive(Debug, Args)]
+pub struct RefineArgs {
+    #[command(flatten)]
+    pub run: RunArgs,
+    /// At most this many rounds (default: checks.refine.rounds, else 2).
+    #[arg(long, value_name = "R", value_parser = clap::value_parser!(u32).range(1..))]
+    pub rounds: Option<u32>,
+    /// Points added per round (default: checks.refine.add, else 10).
+    #[arg(long, value_name = "N", value_parser = clap::value_parser!(u32).range(1..))]
+    pub add: Option<u32>,
 }
 
 #[derive(Debug, Args)]
@@ -113,7 +131,7 @@ pub struct StudyArg {
 pub struct PredictArgs {
     #[command(flatten)]
     pub study: StudyArg,
-    /// CSV of points: a header naming every parameter, one point per row.
+    /// CSV of points: a header naming every control and parameter, one point per row.
     #[arg(long, value_name = "POINTS.csv")]
     pub at: PathBuf,
     /// Write the predictions here instead of stdout.

@@ -42,6 +42,7 @@ pub const POSTERIOR_FILE: &str = "posterior.yaml";
 pub const SAMPLES_FILE: &str = "posterior-samples.csv";
 pub const REPORT_FILE: &str = "report.html";
 pub const CHECKS_FILE: &str = "checks.yaml";
+pub const REFINEMENT_FILE: &str = "refinement.yaml";
 
 /// Posterior draws the predictive checks use at most (thinned evenly).
 pub const CHECK_DRAWS: usize = 2000;
@@ -85,28 +86,35 @@ pub enum DesignOutcome {
 /// Why an existing design does not fit the study, if it does not.
 pub(crate) fn design_mismatch(study: &Study, existing: &Design) -> Option<String> {
     let s = &study.design;
-    if existing.names != study.parameter_names() {
+    let names = study.design_variable_names();
+    if existing.names != names {
+        let what = if study.controls.is_empty() {
+            "parameters"
+        } else {
+            "controls and parameters"
+        };
         return Some(format!(
-            "its parameters {:?} differ from the study's {:?}",
-            existing.names,
-            study.parameter_names()
+            "its {what} {:?} differ from the study's {:?}",
+            existing.names, names
         ));
     }
     // Points added later (`assay design --add`) do not count: the first round is what
-    // `design.points` asked for.
+    // `design.points` asked for (times the field conditions with `controls: from_data`).
     let n0 = existing.initial_size();
+    let asked = s.points * s.conditions.as_ref().map_or(1, Vec::len);
     if existing.method != s.method
         || existing.seed != s.seed
-        || n0 != s.points
+        || n0 != asked
         || existing.space != s.space
     {
         return Some(format!(
             "it was made with method {:?}, seed {}, {} points, space {:?}; the study asks for {:?}, seed {}, {} points, space {:?}",
-            existing.method, existing.seed, n0, existing.space, s.method, s.seed, s.points, s.space
+            existing.method, existing.seed, n0, existing.space, s.method, s.seed, asked, s.space
         ));
     }
+    let vars = study.design_variables();
     for p in &existing.points {
-        for (v, par) in p.values.iter().zip(&study.parameters) {
+        for (v, par) in p.values.iter().zip(&vars) {
             if *v < par.lo || *v > par.hi {
                 return Some(format!(
                     "point {} has {} = {v} outside the range [{}, {}]",
@@ -144,7 +152,7 @@ pub fn write_design(c: &Campaign, force: bool) -> Result<(Design, DesignOutcome)
     c.hash_study_inputs(&mut clock)?;
     clock.study_parts(audit::design_parts(&c.study));
     clock.seed("design", c.study.design.seed);
-    let d = design::generate(&c.study.parameters, &c.study.design)
+    let d = design::generate(&c.study.design_variables(), &c.study.design)
         .map_err(|e| InputError(format!("cannot make the design: {e}")))?;
     write_record(
         &path,
@@ -178,19 +186,30 @@ pub fn augment_design(c: &Campaign, n: usize) -> Result<Design> {
         ))
         .into());
     }
+    let d = match &c.study.design.conditions {
+        Some(conditions) => {
+            design::augment_at_conditions(&existing, &c.study.design_variables(), conditions, n)
+        }
+        None => design::augment(&existing, &c.study.design_variables(), n),
+    }
+    .map_err(|e| InputError(format!("cannot add points: {e}")))?;
+    save_design(c, &d)?;
+    Ok(d)
+}
+
+/// Write an extended design `d` over `design.yaml`.
+///
+/// The previous design.yaml is not listed among the inputs: it is overwritten here, so
+/// its hash could never be checked again; its points and rounds are kept instead.
+fn save_design(c: &Campaign, d: &Design) -> Result<()> {
     let mut clock = c.clock();
-    // The previous design.yaml is not listed among the inputs: it is overwritten here,
-    // so its hash could never be checked again; its points and rounds are kept instead.
     c.hash_study_inputs(&mut clock)?;
     clock.study_parts(audit::design_parts(&c.study));
-    clock.seed("design", existing.seed);
-    let d = design::augment(&existing, &c.study.parameters, n)
-        .map_err(|e| InputError(format!("cannot add points: {e}")))?;
+    clock.seed("design", d.seed);
     write_record(
-        &path,
-        &Record::new("design", clock.finish(), DesignBody::from(&d)),
-    )?;
-    Ok(d)
+        &c.path(DESIGN_FILE),
+        &Record::new("design", clock.finish(), DesignBody::from(d)),
+    )
 }
 
 /// Read the record `file` of the campaign, or say which command makes it.
@@ -409,8 +428,8 @@ pub fn fit_stage(c: &Campaign) -> Result<(FittedSurrogate, BTreeMap<String, usiz
     clock.study_parts(audit::surrogate_parts(&c.study));
     let seed = c.study.surrogate.seed;
     clock.seed("surrogate", seed);
-    let fitted = fit_surrogate(&set, &c.study.parameters, c.study.surrogate, seed)?;
-    let mut body = SurrogateBody::from_fitted(&fitted, &c.study.parameter_names());
+    let fitted = fit_surrogate(&set, &c.study.design_variables(), c.study.surrogate, seed)?;
+    let mut body = SurrogateBody::from_fitted(&fitted, &c.study.design_variable_names());
     for e in &mut body.experiments {
         e.n_excluded = excluded.get(&e.name).copied().unwrap_or(0);
     }
@@ -493,8 +512,14 @@ pub fn calibrate_stage(
     clock.input_named(SURROGATE_FILE, &c.path(SURROGATE_FILE))?;
     clock.study_parts(audit::posterior_parts(&c.study));
     let fitted = rec.body.to_fitted()?;
+    let emulators = c
+        .study
+        .experiments
+        .iter()
+        .map(|e| Ok(field_emulator(c, e, model_of(&fitted, &e.name)?)))
+        .collect::<Result<Vec<_>>>()?;
     let mut experiments: Vec<(&dyn Emulator, ExperimentLikelihood)> = Vec::new();
-    for e in &c.study.experiments {
+    for (e, em) in c.study.experiments.iter().zip(&emulators) {
         let model = model_of(&fitted, &e.name)?;
         let names = runs::value_names(&c.study, e);
         let have: Vec<String> = model.outputs.iter().map(|o| o.name.clone()).collect();
@@ -512,7 +537,7 @@ pub fn calibrate_stage(
         if let Some(d) = discrepancy_of(&c.study, e) {
             lik = lik.with_discrepancy(d);
         }
-        experiments.push((model as &dyn Emulator, lik));
+        experiments.push((em as &dyn Emulator, lik));
     }
     let cal = &c.study.calibration;
     let params = SamplerParams {
@@ -525,7 +550,22 @@ pub fn calibrate_stage(
         until_converged: cal.until_converged,
     };
     clock.seed("calibration", cal.seed);
-    let mut post = LogPosterior::new(c.study.parameters.clone(), experiments);
+    // The training points are starting candidates for the chains (in design order,
+    // each once): a posterior in a small corner of a wide box is found even when no
+    // prior draw lands there.
+    // With controls, the parameters are the inputs after the controls.
+    let n_c = c.study.controls.len();
+    let mut starts: Vec<Vec<f64>> = Vec::new();
+    for m in &fitted.experiments {
+        for x in &m.inputs {
+            let theta = x[n_c..].to_vec();
+            if !starts.contains(&theta) {
+                starts.push(theta);
+            }
+        }
+    }
+    let mut post =
+        LogPosterior::new(c.study.parameters.clone(), experiments).with_start_candidates(&starts);
     if let Some(path) = &cal.prior_from {
         let samples = path.with_file_name("posterior-samples.csv");
         clock.input_named(&path.display().to_string(), path)?;
@@ -607,11 +647,11 @@ pub fn discrepancy_of(study: &Study, e: &crate::study::Experiment) -> Option<Dis
 ///
 /// # Errors
 /// A sampled sd without its column in the samples.
-fn discrepancy_sd_draws(
+fn discrepancy_sd_draws<R: AsRef<[f64]>>(
     study: &Study,
     e: &crate::study::Experiment,
     samples: &crate::report::compute::Samples,
-    rows: &[&[f64]],
+    rows: &[R],
 ) -> Result<Option<Vec<Vec<f64>>>> {
     let Some(d) = discrepancy_of(study, e) else {
         return Ok(None);
@@ -641,7 +681,7 @@ fn discrepancy_sd_draws(
                     ))
                 })?;
                 for (o, r) in out.iter_mut().zip(rows) {
-                    o[q] = r[j];
+                    o[q] = r.as_ref()[j];
                 }
             }
         }
@@ -666,6 +706,22 @@ fn read_if_exists<T: serde::de::DeserializeOwned>(
     }
 }
 
+/// What the likelihood and the checks evaluate for experiment `e`: its surrogate, at
+/// the field conditions when the study has controls.
+fn field_emulator<'a>(
+    c: &Campaign,
+    e: &crate::study::Experiment,
+    model: &'a crate::surrogate::ExperimentModel,
+) -> crate::surrogate::FieldEmulator<'a> {
+    let targets = e.data.targets(c.study.simulator.output.y.len());
+    crate::surrogate::FieldEmulator::new(
+        model,
+        c.study.controls.len(),
+        e.data.conditions(),
+        targets.iter().map(|t| (t.condition, t.value)).collect(),
+    )
+}
+
 /// The surrogate of experiment `name`, or say how to make it.
 fn model_of<'a>(
     fitted: &'a FittedSurrogate,
@@ -683,39 +739,13 @@ fn model_of<'a>(
 /// # Errors
 /// No surrogate or posterior yet, unreadable samples, or samples without a column for a
 /// parameter of the study.
-pub fn check_stage(
-    c: &Campaign,
-    confirm: Option<(RunOptions, &AtomicBool, &dyn Observer)>,
-) -> Result<crate::check::ChecksBody> {
+pub fn check_stage(c: &Campaign, confirm: Option<Confirm<'_>>) -> Result<crate::check::ChecksBody> {
     use crate::check::{check_experiment, ChecksBody};
-    use crate::report::compute::Samples;
     let surrogate: Record<SurrogateBody> = read_stage_record(c, SURROGATE_FILE, "fit")?;
     let _posterior: Record<PosteriorBody> = read_stage_record(c, POSTERIOR_FILE, "calibrate")?;
     let fitted = surrogate.body.to_fitted()?;
+    let (samples, rows, draws) = posterior_draws(c)?;
     let path = c.path(SAMPLES_FILE);
-    let text = std::fs::read_to_string(&path)
-        .with_context(|| format!("cannot read {}", path.display()))?;
-    let samples =
-        Samples::parse_csv(&text).map_err(|e| InputError(format!("{}:{e}", path.display())))?;
-    let rows = samples.thinned(CHECK_DRAWS);
-    let cols = c
-        .study
-        .parameters
-        .iter()
-        .map(|p| {
-            samples.column(&p.name).ok_or_else(|| {
-                InputError(format!(
-                    "{} has no column `{}`: run `assay calibrate` again",
-                    path.display(),
-                    p.name
-                ))
-            })
-        })
-        .collect::<Result<Vec<usize>, InputError>>()?;
-    let draws: Vec<Vec<f64>> = rows
-        .iter()
-        .map(|r| cols.iter().map(|&j| r[j]).collect())
-        .collect();
     let mut clock = c.clock();
     c.hash_study_inputs(&mut clock)?;
     clock.input_named(SURROGATE_FILE, &c.path(SURROGATE_FILE))?;
@@ -725,7 +755,7 @@ pub fn check_stage(
     clock.seed("checks", seed);
     let mut experiments = Vec::new();
     for (k, e) in c.study.experiments.iter().enumerate() {
-        let model = model_of(&fitted, &e.name)?;
+        let model = field_emulator(c, e, model_of(&fitted, &e.name)?);
         let noise: Option<Vec<f64>> = samples
             .column(&format!("noise_sd.{}", e.name))
             .map(|j| rows.iter().map(|r| r[j]).collect());
@@ -737,7 +767,7 @@ pub fn check_stage(
             noise_sd: noise.as_deref(),
             discrepancy_sd: disc.as_deref(),
         };
-        let check = check_experiment(&c.study, e, model, &draws, predictive, &mut rng)
+        let check = check_experiment(&c.study, e, &model, &draws, predictive, &mut rng)
             .ok_or_else(|| {
                 InputError(format!(
                     "the surrogate's outputs of `{}` do not match its field data: run `assay all` to bring the records up to date",
@@ -747,10 +777,15 @@ pub fn check_stage(
         experiments.push(check);
     }
     let confirmation = match confirm {
-        Some((options, stop, observer)) if c.study.confirmation_runs > 0 => {
-            let conf = confirm_runs(c, &fitted, &samples, &draws, options, stop, observer)?;
-            for (k, p) in conf.points.iter().enumerate() {
-                let _ = k;
+        Some(cf) if cf.n > 0 && !c.study.controls.is_empty() => {
+            return Err(InputError(
+                "confirmation runs and refinement are not available yet for studies with `controls`: set checks.confirmation_runs to 0 and use `assay design --add`".into(),
+            )
+            .into())
+        }
+        Some(cf) if cf.n > 0 => {
+            let conf = confirm_runs(c, &fitted, &samples, &draws, cf)?;
+            for p in &conf.points {
                 for e in &c.study.experiments {
                     let rp = runs::run_record_path(&c.dir, &p.id, &e.name);
                     clock.input_named(&format!("runs/{}/{}/run.yaml", p.id, e.name), &rp)?;
@@ -778,6 +813,160 @@ pub fn check_stage(
     Ok(body)
 }
 
+/// Confirmation runs for [`check_stage`]: how many posterior draws (plus the mean), and
+/// how to run them.
+pub struct Confirm<'a> {
+    pub n: usize,
+    pub options: RunOptions,
+    pub stop: &'a AtomicBool,
+    pub observer: &'a dyn Observer,
+}
+
+/// The posterior samples, their rows thinned evenly to at most [`CHECK_DRAWS`], and
+/// those rows' parameter values in the study's order.
+///
+/// # Errors
+/// No samples file, a malformed one, or one without a column for a parameter.
+#[allow(clippy::type_complexity)]
+fn posterior_draws(
+    c: &Campaign,
+) -> Result<(
+    crate::report::compute::Samples,
+    Vec<Vec<f64>>,
+    Vec<Vec<f64>>,
+)> {
+    use crate::report::compute::Samples;
+    let path = c.path(SAMPLES_FILE);
+    let text = std::fs::read_to_string(&path)
+        .with_context(|| format!("cannot read {}", path.display()))?;
+    let samples =
+        Samples::parse_csv(&text).map_err(|e| InputError(format!("{}:{e}", path.display())))?;
+    let rows: Vec<Vec<f64>> = samples
+        .thinned(CHECK_DRAWS)
+        .into_iter()
+        .map(<[f64]>::to_vec)
+        .collect();
+    let cols = c
+        .study
+        .parameters
+        .iter()
+        .map(|p| {
+            samples.column(&p.name).ok_or_else(|| {
+                InputError(format!(
+                    "{} has no column `{}`: run `assay calibrate` again",
+                    path.display(),
+                    p.name
+                ))
+            })
+        })
+        .collect::<Result<Vec<usize>, InputError>>()?;
+    let draws: Vec<Vec<f64>> = rows
+        .iter()
+        .map(|r| cols.iter().map(|&j| r[j]).collect())
+        .collect();
+    Ok((samples, rows, draws))
+}
+
+/// Add a refinement round to the design: `n_near` points among the posterior draws
+/// (spread out by greedy maximin), then `n_global` over the whole box (the design's own
+/// way of adding points, as `assay design --add`). Writes `design.yaml`; returns the
+/// design and the ids of the two groups.
+///
+/// # Errors
+/// No design or posterior samples, or a design that does not match the study.
+pub fn refine_design(
+    c: &Campaign,
+    n_near: usize,
+    n_global: usize,
+) -> Result<(Design, Vec<String>, Vec<String>)> {
+    let existing = load_design(c)?;
+    if let Some(why) = design_mismatch(&c.study, &existing) {
+        return Err(InputError(format!(
+            "cannot refine: {} does not match the study: {why}; run `assay all` first",
+            c.path(DESIGN_FILE).display()
+        ))
+        .into());
+    }
+    let (_, _, draws) = posterior_draws(c)?;
+    let n0 = existing.points.len();
+    let mut d = existing;
+    if n_near > 0 {
+        let stream = d.rounds.len().max(1) as u64;
+        d = design::spread_among(
+            &d,
+            &c.study.parameters,
+            &draws,
+            n_near.min(draws.len()),
+            d.seed,
+            stream,
+        )
+        .map_err(|e| InputError(format!("cannot add refinement points: {e}")))?;
+    }
+    let n1 = d.points.len();
+    if n_global > 0 {
+        d = design::augment(&d, &c.study.parameters, n_global)
+            .map_err(|e| InputError(format!("cannot add refinement points: {e}")))?;
+    }
+    save_design(c, &d)?;
+    let ids = |r: std::ops::Range<usize>| d.points[r].iter().map(|p| p.id.clone()).collect();
+    let (near, global) = (ids(n0..n1), ids(n1..d.points.len()));
+    Ok((d, near, global))
+}
+
+/// Write `refinement.yaml`.
+///
+/// # Errors
+/// I/O.
+pub fn write_refinement(c: &Campaign, body: &crate::check::refine::RefinementBody) -> Result<()> {
+    let mut clock = c.clock();
+    c.hash_study_inputs(&mut clock)?;
+    clock.input_named(DESIGN_FILE, &c.path(DESIGN_FILE))?;
+    write_record(
+        &c.path(REFINEMENT_FILE),
+        &Record::new("refinement", clock.finish(), body.clone()),
+    )
+}
+
+/// Whether `refinement.yaml` records a finished refinement of the current design (so
+/// `assay all` with `checks.refine` does not refine again).
+pub fn refinement_done(c: &Campaign) -> bool {
+    use crate::check::refine::{RefinementBody, Stopped};
+    let Ok(rec) = read_record::<RefinementBody>(&c.path(REFINEMENT_FILE)) else {
+        return false;
+    };
+    let Ok(sha) = sha256_file(&c.path(DESIGN_FILE)) else {
+        return false;
+    };
+    rec.body.stopped != Stopped::InProgress && rec.body.design_sha256.as_deref() == Some(&sha)
+}
+
+/// The sha256 of `design.yaml`.
+///
+/// # Errors
+/// I/O.
+pub fn design_sha256(c: &Campaign) -> Result<String> {
+    Ok(sha256_file(&c.path(DESIGN_FILE))?)
+}
+
+/// Posterior means of the parameters (study order) from `posterior.yaml`.
+///
+/// # Errors
+/// No posterior yet, or one without a parameter of the study.
+pub fn posterior_means(c: &Campaign) -> Result<Vec<f64>> {
+    let p: Record<PosteriorBody> = read_stage_record(c, POSTERIOR_FILE, "calibrate")?;
+    c.study
+        .parameters
+        .iter()
+        .map(|q| {
+            p.body
+                .parameters
+                .get(&q.name)
+                .map(|s| s.mean)
+                .with_context(|| format!("posterior.yaml has no parameter `{}`", q.name))
+        })
+        .collect()
+}
+
 /// First random stream of the predictive checks (one per experiment).
 const CHECK_STREAM_BASE: u64 = 1 << 40;
 /// Random stream that picks the confirmation draws.
@@ -791,15 +980,13 @@ fn confirm_runs(
     fitted: &FittedSurrogate,
     samples: &crate::report::compute::Samples,
     draws: &[Vec<f64>],
-    options: RunOptions,
-    stop: &AtomicBool,
-    observer: &dyn Observer,
+    cf: Confirm<'_>,
 ) -> Result<crate::check::Confirmation> {
     use crate::check::{confirm_experiment, Confirmation, ConfirmationPoint};
     let d = c.study.parameters.len();
     let seed = c.study.calibration.seed;
     let mut rng = crate::rng::stream(seed, CONFIRM_STREAM);
-    let n = c.study.confirmation_runs.min(draws.len());
+    let n = cf.n.min(draws.len());
     let mut picks = rand::seq::index::sample(&mut rng, draws.len(), n).into_vec();
     picks.sort_unstable();
     let mut candidates: Vec<(String, Vec<f64>)> = Vec::with_capacity(n + 1);
@@ -845,14 +1032,7 @@ fn confirm_runs(
             stream,
         )
         .map_err(|e| InputError(format!("cannot add confirmation points: {e}")))?;
-        let mut clock = c.clock();
-        c.hash_study_inputs(&mut clock)?;
-        clock.study_parts(audit::design_parts(&c.study));
-        clock.seed("design", d2.seed);
-        write_record(
-            &c.path(DESIGN_FILE),
-            &Record::new("design", clock.finish(), DesignBody::from(&d2)),
-        )?;
+        save_design(c, &d2)?;
         d2
     };
     for p in points.iter_mut().filter(|p| !p.reused) {
@@ -868,10 +1048,10 @@ fn confirm_runs(
         &c.study,
         &design,
         &c.dir,
-        options,
+        cf.options,
         &c.command_line,
-        stop,
-        observer,
+        cf.stop,
+        cf.observer,
     )?;
     let (set, _) = runs::load_runs(&c.study, &design, &c.dir)?;
     let mut experiments = Vec::new();
@@ -998,11 +1178,20 @@ pub fn report_stage(c: &Campaign, out: &Path) -> Result<()> {
                 noise_sd: noise.as_deref(),
                 discrepancy_sd: disc.as_deref(),
             };
+            // With controls the emulator gives the field vector (one entry per target)
+            // when the surrogate's outputs are the runs' values.
+            let n_outputs = if c.study.controls.is_empty() {
+                model.outputs.len()
+            } else if model.outputs.len() == runs::value_names(&c.study, e).len() {
+                e.data.targets(c.study.simulator.output.y.len()).len()
+            } else {
+                0
+            };
             match compute::predictive(
                 &c.study,
                 e,
-                model,
-                model.outputs.len(),
+                &field_emulator(c, e, model),
+                n_outputs,
                 &draws,
                 drawn,
             ) {
@@ -1098,13 +1287,13 @@ pub fn parse_points(text: &str, file: &Path, names: &[String]) -> Result<Vec<Vec
     Ok(out)
 }
 
-/// Surrogate mean and sd at `points`, as CSV: the parameters, then for every experiment
+/// Surrogate mean and sd at `points`, as CSV: the controls and parameters, then for every experiment
 /// and output value `EXP.Y.mean`, `EXP.Y.sd` (curves: `EXP.Y@X.mean`, `EXP.Y@X.sd`).
 /// Also returns how many points lie outside the parameter box (extrapolation).
 pub fn predict_csv(c: &Campaign, points: &[Vec<f64>]) -> Result<(Vec<u8>, usize)> {
     use rayon::prelude::*;
     let fitted = read_surrogate(c)?.body.to_fitted()?;
-    let names = c.study.parameter_names();
+    let names = c.study.design_variable_names();
     let mut header = names.clone();
     for e in &fitted.experiments {
         for o in &e.outputs {
@@ -1130,7 +1319,7 @@ pub fn predict_csv(c: &Campaign, points: &[Vec<f64>]) -> Result<(Vec<u8>, usize)
         .iter()
         .filter(|p| {
             p.iter()
-                .zip(&c.study.parameters)
+                .zip(&c.study.design_variables())
                 .any(|(v, par)| *v < par.lo || *v > par.hi)
         })
         .count();

@@ -5,10 +5,13 @@ mod args;
 mod plan;
 
 use anyhow::{Context, Result};
-use args::{Cli, Command};
+use args::{Cli, Command, RefineArgs, RunArgs};
 use assay::audit::{self, Depth, Freshness, Stage, Verification};
 use assay::calibrate::{Diagnostics, ParameterSummary, PosteriorBody};
 use assay::campaign::{self, Campaign, DesignOutcome, InputError};
+use assay::check::refine::{
+    self as refinement, ConfirmationError, RefineRound, RefinementBody, Stopped,
+};
 use assay::progress::Observer;
 use assay::record::{read_record, Record};
 use assay::study::{self, Study, StudyErrors};
@@ -173,12 +176,28 @@ fn print_summary(s: &Study, c: &Campaign) {
             p.prior
         );
     }
+    if !s.controls.is_empty() {
+        out!("  controls:");
+        for p in &s.controls {
+            let unit = p
+                .unit
+                .as_deref()
+                .map(|u| format!(" {u}"))
+                .unwrap_or_default();
+            out!("    {:<12} [{}, {}]{unit}", p.name, p.lo, p.hi);
+        }
+    }
     out!("  simulator: {}", s.simulator.command.join(" "));
     out!("  experiments:");
     for e in &s.experiments {
         let st = e.data.stations();
+        let conditions = if s.controls.is_empty() {
+            String::new()
+        } else {
+            format!(" and {} conditions", e.data.conditions().len())
+        };
         out!(
-            "    {:<12} {} data rows at {} output locations, data {}",
+            "    {:<12} {} data rows at {} output locations{conditions}, data {}",
             e.name,
             e.data.rows.len(),
             st.len(),
@@ -628,6 +647,7 @@ fn execute(cli: &Cli) -> Result<bool> {
         Command::Predict(a) => &a.study.study,
         Command::Report(a) => &a.study.study,
         Command::Run(a) | Command::All(a) => &a.study.study,
+        Command::Refine(a) => &a.run.study.study,
     };
     let study = load_study(study_path)?;
     let c = Campaign::new(study, &cli.runs, command_line);
@@ -678,7 +698,7 @@ fn execute(cli: &Cli) -> Result<bool> {
         Command::Predict(a) => {
             let text = std::fs::read_to_string(&a.at)
                 .map_err(|e| InputError(format!("cannot read {}: {e}", a.at.display())))?;
-            let points = campaign::parse_points(&text, &a.at, &c.study.parameter_names())?;
+            let points = campaign::parse_points(&text, &a.at, &c.study.design_variable_names())?;
             let (bytes, outside) = campaign::predict_csv(&c, &points)?;
             if outside > 0 && !cli.quiet {
                 eprintln!("warning: {outside} of {} points lie outside the parameter box: the surrogate extrapolates there", points.len());
@@ -719,7 +739,12 @@ fn execute(cli: &Cli) -> Result<bool> {
                 interruptible(|| {
                     campaign::check_stage(
                         &c,
-                        Some((plan::study_run_options(&c.study), stop, obs.as_ref())),
+                        Some(campaign::Confirm {
+                            n: c.study.confirmation_runs,
+                            options: plan::study_run_options(&c.study),
+                            stop,
+                            observer: obs.as_ref(),
+                        }),
                     )
                 })?
             } else {
@@ -755,65 +780,217 @@ fn execute(cli: &Cli) -> Result<bool> {
                 .into());
             }
             let _lock = campaign::lock(&c)?;
-            // One rule for what to redo: the checks of `assay verify` (without re-hashing
-            // the simulator outputs, which decide no stage's staleness).
-            let v = audit::verify_to(&c, Depth::Records)?;
-            let design_check = v.stage(Stage::Design);
-            let (d, verb) = match &design_check.freshness {
-                Freshness::Stale(why) if design_check.findings.is_empty() => {
-                    out!("design: stale ({})", why.join("; "));
-                    let (d, _) = campaign::write_design(&c, true)?;
-                    (d, "written anew")
-                }
-                _ => {
-                    let (d, how) = campaign::write_design(&c, false)?;
-                    let verb = if how == DesignOutcome::Kept {
-                        "kept"
-                    } else {
-                        "written"
-                    };
-                    (d, verb)
-                }
-            };
-            out!("design: {} points {verb}", d.points.len());
-            let s = interruptible(|| {
-                campaign::run_stage(&c, plan::run_options(a, &c.study), stop, obs.as_ref())
-            })?;
-            report_runs(&s, &c.study);
-            some_failed = s.failed > 0;
-            if stop.load(Ordering::SeqCst) || s.in_flight > 0 {
-                anyhow::bail!("interrupted; run the same command again to continue");
-            }
-            if audit::verify_to(&c, Depth::Records)?
-                .stage(Stage::Surrogate)
-                .needs_redo()
-            {
-                let (s, excluded) = campaign::fit_stage(&c)?;
-                print_fit(&c, &s, &excluded);
-            } else {
-                out!("surrogate: up to date");
-            }
-            if audit::verify_to(&c, Depth::Records)?
-                .stage(Stage::Posterior)
-                .needs_redo()
-            {
-                interruptible(|| campaign::calibrate_stage(&c, stop, obs.as_ref()))?;
-                if stop.load(Ordering::SeqCst) {
-                    anyhow::bail!("interrupted; run the same command again to continue");
-                }
-            } else {
-                out!("posterior: up to date");
-            }
-            print_posterior(&c)?;
-            // Confirmation runs only by `assay check`: here they would make the surrogate
-            // stale again at every `all`.
+            some_failed = up_to_date(&c, a, stop, obs.as_ref())?;
+            // Confirmation runs only by `assay check` and refinement: here they would make
+            // the surrogate stale again at every `all`.
             let checks = campaign::check_stage(&c, None)?;
             print_checks(&c, &checks);
+            if c.study.refine.is_some() {
+                if campaign::refinement_done(&c) {
+                    out!("refinement: done for this design (refinement.yaml)");
+                } else {
+                    some_failed |= refine(&c, None, a, stop, obs.as_ref())?;
+                }
+            }
             let report = c.path(campaign::REPORT_FILE);
             campaign::report_stage(&c, &report)?;
             out!("report: {}", report.display());
             out!("records: {}", c.dir.display());
         }
+        Command::Refine(a) => {
+            if a.run.detach {
+                return Err(InputError(
+                    "--detach belongs to `assay run`: refinement needs each round's runs finished to go on"
+                        .into(),
+                )
+                .into());
+            }
+            let _lock = campaign::lock(&c)?;
+            some_failed = up_to_date(&c, &a.run, stop, obs.as_ref())?;
+            some_failed |= refine(&c, Some(a), &a.run, stop, obs.as_ref())?;
+            let report = c.path(campaign::REPORT_FILE);
+            campaign::report_stage(&c, &report)?;
+            out!("report: {}", report.display());
+        }
+    }
+    Ok(some_failed)
+}
+
+/// Design, runs, surrogate and posterior brought up to date, reusing what `assay
+/// verify` calls fresh (the first part of `assay all`). Returns whether some runs failed.
+fn up_to_date(c: &Campaign, a: &RunArgs, stop: &AtomicBool, obs: &dyn Observer) -> Result<bool> {
+    // One rule for what to redo: the checks of `assay verify` (without re-hashing
+    // the simulator outputs, which decide no stage's staleness).
+    let v = audit::verify_to(c, Depth::Records)?;
+    let design_check = v.stage(Stage::Design);
+    let (d, verb) = match &design_check.freshness {
+        Freshness::Stale(why) if design_check.findings.is_empty() => {
+            out!("design: stale ({})", why.join("; "));
+            let (d, _) = campaign::write_design(c, true)?;
+            (d, "written anew")
+        }
+        _ => {
+            let (d, how) = campaign::write_design(c, false)?;
+            let verb = if how == DesignOutcome::Kept {
+                "kept"
+            } else {
+                "written"
+            };
+            (d, verb)
+        }
+    };
+    out!("design: {} points {verb}", d.points.len());
+    let s = interruptible(|| campaign::run_stage(c, plan::run_options(a, &c.study), stop, obs))?;
+    report_runs(&s, &c.study);
+    if stop.load(Ordering::SeqCst) || s.in_flight > 0 {
+        anyhow::bail!("interrupted; run the same command again to continue");
+    }
+    if audit::verify_to(c, Depth::Records)?
+        .stage(Stage::Surrogate)
+        .needs_redo()
+    {
+        let (s, excluded) = campaign::fit_stage(c)?;
+        print_fit(c, &s, &excluded);
+    } else {
+        out!("surrogate: up to date");
+    }
+    if audit::verify_to(c, Depth::Records)?
+        .stage(Stage::Posterior)
+        .needs_redo()
+    {
+        interruptible(|| campaign::calibrate_stage(c, stop, obs))?;
+        if stop.load(Ordering::SeqCst) {
+            anyhow::bail!("interrupted; run the same command again to continue");
+        }
+    } else {
+        out!("posterior: up to date");
+    }
+    print_posterior(c)?;
+    Ok(s.failed > 0)
+}
+
+/// One line per experiment: the surrogate's confirmation error near the posterior.
+fn print_confirmation_errors(label: &str, errors: &[ConfirmationError]) {
+    for e in errors {
+        out!(
+            "  {label:<7} {:<16} RMSE {} = {} noise sd ({} runs)",
+            e.experiment,
+            sig(e.rmse, 3),
+            sig(e.rmse_over_noise, 3),
+            e.n_runs
+        );
+    }
+}
+
+/// Confirm, then refine in rounds until the confirmation error is below the tolerance
+/// or the rounds are done; finally fold the last confirmation runs in (fit, calibrate,
+/// check). Records every round in refinement.yaml. Returns whether some runs failed.
+fn refine(
+    c: &Campaign,
+    args: Option<&RefineArgs>,
+    run: &RunArgs,
+    stop: &AtomicBool,
+    obs: &dyn Observer,
+) -> Result<bool> {
+    let (p, n_confirm) = plan::refine_params(args, &c.study);
+    let n_global = p.n_global();
+    let n_near = p.add - n_global;
+    let run_options = plan::run_options(run, &c.study);
+    let confirm = |stop: &AtomicBool| -> Result<Vec<ConfirmationError>> {
+        let b = interruptible(|| {
+            campaign::check_stage(
+                c,
+                Some(campaign::Confirm {
+                    n: n_confirm,
+                    options: run_options,
+                    stop,
+                    observer: obs,
+                }),
+            )
+        })?;
+        if stop.load(Ordering::SeqCst) {
+            anyhow::bail!("interrupted; run the same command again to continue");
+        }
+        Ok(b.confirmation
+            .as_ref()
+            .map(refinement::errors)
+            .unwrap_or_default())
+    };
+    out!(
+        "refinement: up to {} round{} of {} points ({n_near} near the posterior, {n_global} over the box); stops at RMSE ≤ {} noise sd",
+        p.rounds,
+        if p.rounds == 1 { "" } else { "s" },
+        p.add,
+        p.tolerance
+    );
+    let start = confirm(stop)?;
+    print_confirmation_errors("start", &start);
+    let mut body = RefinementBody {
+        rounds_asked: p.rounds,
+        add: p.add,
+        global_share: p.global_share,
+        tolerance: p.tolerance,
+        confirmation_runs: n_confirm,
+        start: start.clone(),
+        rounds: Vec::new(),
+        stopped: Stopped::InProgress,
+        design_sha256: None,
+    };
+    campaign::write_refinement(c, &body)?;
+    let mut before = start;
+    let mut some_failed = false;
+    for round in 1..=p.rounds {
+        if refinement::below_tolerance(&before, p.tolerance) {
+            body.stopped = Stopped::BelowTolerance;
+            break;
+        }
+        let (_, near, global) = campaign::refine_design(c, n_near, n_global)?;
+        out!(
+            "round {round}: {} points added near the posterior, {} over the box",
+            near.len(),
+            global.len()
+        );
+        some_failed |= up_to_date(c, run, stop, obs)?;
+        let after = confirm(stop)?;
+        print_confirmation_errors("before", &before);
+        print_confirmation_errors("after", &after);
+        body.rounds.push(RefineRound {
+            round,
+            added_near_posterior: near,
+            added_global: global,
+            before,
+            after: after.clone(),
+            posterior_mean: campaign::posterior_means(c)?,
+        });
+        campaign::write_refinement(c, &body)?;
+        before = after;
+    }
+    if body.stopped == Stopped::InProgress {
+        body.stopped = if refinement::below_tolerance(&before, p.tolerance) {
+            Stopped::BelowTolerance
+        } else {
+            Stopped::RoundsDone
+        };
+    }
+    out!("refinement: the last confirmation runs join the training data");
+    some_failed |= up_to_date(c, run, stop, obs)?;
+    let checks = campaign::check_stage(c, None)?;
+    print_checks(c, &checks);
+    body.design_sha256 = Some(campaign::design_sha256(c)?);
+    campaign::write_refinement(c, &body)?;
+    match body.stopped {
+        Stopped::BelowTolerance => out!(
+            "refinement: the surrogate agrees with the simulator near the posterior (RMSE ≤ {} noise sd) after {} round{}",
+            p.tolerance,
+            body.rounds.len(),
+            if body.rounds.len() == 1 { "" } else { "s" }
+        ),
+        _ => out!(
+            "refinement: {} rounds done; the surrogate's error near the posterior is still {} noise sd (tolerance {}): add rounds or runs",
+            body.rounds.len(),
+            sig(refinement::worst(&before), 3),
+            p.tolerance
+        ),
     }
     Ok(some_failed)
 }

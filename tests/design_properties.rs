@@ -46,6 +46,7 @@ fn initial(method: DesignMethod, params: &[Parameter], n: usize, seed: u64) -> D
         points: n,
         seed,
         space: DesignSpace::Range,
+        conditions: None,
     };
     if method != DesignMethod::Lhs {
         return generate(params, &spec).unwrap();
@@ -200,6 +201,7 @@ fn prior_space_puts_the_prior_share_of_points_in_an_interval() {
         points: n,
         seed: 5,
         space: DesignSpace::Prior,
+        conditions: None,
     };
     let d = generate(std::slice::from_ref(&p), &spec).unwrap();
     let inside = d

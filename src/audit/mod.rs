@@ -250,7 +250,7 @@ pub fn check_runs(
     if design_stale {
         s.stale("the design is stale: its points will change".into());
     }
-    let names = c.study.parameter_names();
+    let names = c.study.design_variable_names();
     let mut counts: BTreeMap<&str, usize> = BTreeMap::new();
     let mut n_moved = 0;
     let mut moved_example = String::new();

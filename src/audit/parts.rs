@@ -50,7 +50,7 @@ fn parameters_json(study: &Study, with_priors: bool) -> Value {
 pub fn design_parts(study: &Study) -> BTreeMap<String, String> {
     let d = &study.design;
     let by_prior = d.space == DesignSpace::Prior;
-    BTreeMap::from([
+    let mut parts = BTreeMap::from([
         ("parameters".into(), sha(&parameters_json(study, by_prior))),
         (
             "design".into(),
@@ -61,13 +61,31 @@ pub fn design_parts(study: &Study) -> BTreeMap<String, String> {
                 "space": format!("{:?}", d.space),
             })),
         ),
-    ])
+    ]);
+    // Only studies with controls have this part, so older records stay fresh.
+    if !study.controls.is_empty() {
+        parts.insert("controls".into(), sha(&controls_json(study)));
+    }
+    parts
+}
+
+/// The controls and, with `design.controls: from_data`, the field conditions the
+/// design was built on.
+fn controls_json(study: &Study) -> Value {
+    json!({
+        "controls": study
+            .controls
+            .iter()
+            .map(|p| json!({"name": p.name, "range": [p.lo, p.hi]}))
+            .collect::<Vec<_>>(),
+        "conditions": study.design.conditions,
+    })
 }
 
 /// Parts of the study `surrogate.yaml` depends on.
 pub fn surrogate_parts(study: &Study) -> BTreeMap<String, String> {
     let s = &study.surrogate;
-    BTreeMap::from([
+    let mut parts = BTreeMap::from([
         ("parameters".into(), sha(&parameters_json(study, false))),
         (
             "surrogate".into(),
@@ -77,7 +95,11 @@ pub fn surrogate_parts(study: &Study) -> BTreeMap<String, String> {
                 "seed": s.seed,
             })),
         ),
-    ])
+    ]);
+    if !study.controls.is_empty() {
+        parts.insert("controls".into(), sha(&controls_json(study)));
+    }
+    parts
 }
 
 /// Parts of the study `posterior.yaml` depends on.
@@ -97,7 +119,14 @@ pub fn posterior_parts(study: &Study) -> BTreeMap<String, String> {
                 .data
                 .rows
                 .iter()
-                .map(|r| json!([r.x, r.y, r.sd]))
+                .map(|r| {
+                    // The conditions only with controls, so older records stay fresh.
+                    if r.controls.is_empty() {
+                        json!([r.x, r.y, r.sd])
+                    } else {
+                        json!([r.x, r.y, r.sd, r.controls])
+                    }
+                })
                 .collect();
             json!({"name": e.name, "noise": noise, "data": rows})
         })

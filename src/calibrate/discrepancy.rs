@@ -111,7 +111,8 @@ pub struct DiscrepancyBlock {
     pub quantity: String,
     /// Positions of the quantity's values in the experiment's output vector.
     pub index: Vec<usize>,
-    /// Their x, when the quantity has at least two distinct x values.
+    /// Their x, when the quantity has at least two distinct x values (with controls the
+    /// same x recurs at every field condition: δ is a function of x alone).
     pub x: Option<Vec<f64>>,
     pub sd: Hyper,
     /// `None` without x.
@@ -155,7 +156,12 @@ impl Discrepancy {
                     return None;
                 }
                 let xs: Vec<f64> = index.iter().filter_map(|&j| targets[j].x).collect();
-                let x = (xs.len() == index.len() && xs.len() >= 2).then_some(xs);
+                // With controls one x can recur (once per field condition): a
+                // length-scale needs two distinct x values.
+                let mut distinct = xs.clone();
+                distinct.sort_by(f64::total_cmp);
+                distinct.dedup();
+                let x = (xs.len() == index.len() && distinct.len() >= 2).then_some(xs);
                 let sd = match params.sd {
                     Some(DiscrepancySdSpec::Fixed(v)) => Hyper::Fixed(v),
                     Some(DiscrepancySdSpec::HalfNormal { scale }) => Hyper::HalfNormal { scale },

@@ -89,7 +89,7 @@ pub fn sample(
         .into_par_iter()
         .map(|k| {
             let mut rng = crate::rng::stream(params.seed, k as u64);
-            let z = post.to_unconstrained(&initial_point(post, &mut rng));
+            let z = post.to_unconstrained(&initial_point(post, &mut rng, k, n));
             let lp = post.ln_density(&z);
             Walker {
                 rng,

@@ -69,6 +69,16 @@ impl Emulator for crate::surrogate::ExperimentModel {
     }
 }
 
+impl Emulator for crate::surrogate::FieldEmulator<'_> {
+    fn predict(&self, theta: &[f64]) -> (Vec<f64>, Vec<f64>) {
+        crate::surrogate::FieldEmulator::predict(self, theta)
+    }
+
+    fn predict_low_rank(&self, theta: &[f64]) -> LowRankPrediction {
+        crate::surrogate::FieldEmulator::predict_low_rank(self, theta)
+    }
+}
+
 /// ln N(r; 0, diag(λ) + B diag(v) Bᵀ) by the Woodbury identity and the matrix
 /// determinant lemma.
 ///

@@ -25,7 +25,7 @@ pub use likelihood::{
 };
 pub use posterior::LogPosterior;
 pub use prior::{ln_prior, InverseGamma, MvnPrior, Transform};
-pub use sampler::{converged, sample, Chain, SamplerParams, Termination};
+pub use sampler::{converged, sample, Chain, Restart, SamplerParams, Termination};
 pub use summary::{
     summarize, Correlation, DiscrepancySummary, HyperSummary, Marginal, Mcse, NoiseMcse,
     NoiseSummary, ParameterSummary, PosteriorBody, PosteriorSummary, CAUTION, ESS_WARN, RHAT_WARN,

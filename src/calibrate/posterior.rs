@@ -27,6 +27,9 @@ pub struct LogPosterior<'a> {
     /// A joint prior on z = logit θ that replaces the per-parameter priors
     /// (`calibration.prior_from`).
     mvn_prior: Option<MvnPrior>,
+    /// Parameter values the chains may start from besides prior draws (the surrogate's
+    /// training points): chain k of n considers those with index ≡ k (mod n).
+    pub start_candidates: Vec<Vec<f64>>,
 }
 
 impl<'a> LogPosterior<'a> {
@@ -65,6 +68,7 @@ impl<'a> LogPosterior<'a> {
             discrepancy_slot,
             n_evaluations: AtomicU64::new(0),
             mvn_prior: None,
+            start_candidates: Vec::new(),
         }
     }
 
@@ -74,6 +78,23 @@ impl<'a> LogPosterior<'a> {
     pub fn with_mvn_prior(mut self, prior: MvnPrior) -> Self {
         assert_eq!(prior.mean.len(), self.n_parameters());
         self.mvn_prior = Some(prior);
+        self
+    }
+
+    /// Let the chains also consider these parameter vectors (in the study's order) as
+    /// starting points; those not strictly inside every range are left out.
+    pub fn with_start_candidates(mut self, points: &[Vec<f64>]) -> Self {
+        self.start_candidates = points
+            .iter()
+            .filter(|x| {
+                x.len() == self.parameters.len()
+                    && x.iter().zip(&self.parameters).all(|(v, p)| {
+                        let margin = 1e-6 * (p.hi - p.lo);
+                        *v > p.lo + margin && *v < p.hi - margin && ln_prior(p, *v).is_finite()
+                    })
+            })
+            .cloned()
+            .collect();
         self
     }
 

@@ -91,6 +91,18 @@ pub struct Chain {
     /// Final proposal scale λ (multiplies the Cholesky factor of the tuned covariance).
     pub step_scale: f64,
     pub termination: Termination,
+    /// The chain whose warm-up state this one took over halfway through warm-up,
+    /// because it was stranded far below it ([`STRANDED_GAP`]).
+    pub restarted_from: Option<Restart>,
+}
+
+/// A stranded chain moved to another chain's position halfway through warm-up.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct Restart {
+    /// The chain it took the state of.
+    pub from: usize,
+    /// How far its log density lay below that chain's.
+    pub gap: f64,
 }
 
 impl Chain {
@@ -105,6 +117,7 @@ impl Chain {
             acceptance_rate: 0.0,
             step_scale: 0.0,
             termination: Termination::MaxDraws,
+            restarted_from: None,
         }
     }
 
@@ -130,6 +143,22 @@ const COV_REGULARISER: f64 = 1e-10;
 /// 0.97 the last window is unaffected and the kept draws lose no efficiency.
 const CORRELATION_SHRINK: f64 = 0.01;
 
+/// Halfway through warm-up, a chain whose log density lies more than this plus the
+/// dimension below the best chain's is stranded: it takes over the best chain's position
+/// and tuned proposal (keeping its own random stream) and warms up again from there.
+///
+/// Why: a surrogate's predictive variance and the mean's reversion to its trend far from
+/// the runs can make small local maxima of the likelihood far from the main mode (after
+/// refinement has put many runs near the posterior, especially), and a random-walk chain
+/// started in one never leaves it. A gap of 50 + d nats is no posterior mass to speak of
+/// (e^−50 ≈ 2·10⁻²² relative density), while the log density of draws from a unimodal
+/// d-dimensional posterior spreads as χ²_d/2, whose 1 − 10⁻⁹ quantile stays below 25 + d
+/// for every d (so a chain that is only exploring its tail is never moved). Chains that
+/// share a real mode, or modes within the gap, are left alone, so R̂ still shows them.
+/// Moving stranded walkers to good ones is common practice with ensemble samplers; this
+/// applies it once, during warm-up, to the adaptive Metropolis chains.
+pub const STRANDED_GAP: f64 = 50.0;
+
 /// Candidate starting points drawn per chain; the chain starts at the best of them.
 /// A surrogate's predictive variance grows towards the corners of the parameter box,
 /// and there the likelihood can have small local modes (the variance grows faster than
@@ -139,14 +168,33 @@ const CORRELATION_SHRINK: f64 = 0.01;
 /// best kept).
 pub const N_START_CANDIDATES: usize = 16;
 
-/// Draw a starting point: [`N_START_CANDIDATES`] candidates, each the parameters from
-/// their prior (truncated to the range) and any estimated noise variance from its
-/// conditional posterior at those parameters; keep the one with the highest target
-/// density (the first on ties). Every candidate's density counts as an evaluation.
-pub(crate) fn initial_point<R: Rng + ?Sized>(post: &LogPosterior<'_>, rng: &mut R) -> Vec<f64> {
+/// Draw a starting point for chain `index` of `n_chains`: [`N_START_CANDIDATES`]
+/// candidates with parameters from their prior (truncated to the range), then the
+/// [`LogPosterior::start_candidates`] with index ≡ `index` (mod `n_chains`) — the
+/// surrogate's training points, so that a posterior concentrated in a small corner of a
+/// wide box (where prior draws rarely land) is found, while different chains still
+/// start from different points. Each candidate's estimated noise variances are drawn
+/// from their conditional posterior at its parameters. Keep the candidate with the
+/// highest target density (the first on ties). Every candidate's density counts as an
+/// evaluation.
+pub(crate) fn initial_point<R: Rng + ?Sized>(
+    post: &LogPosterior<'_>,
+    rng: &mut R,
+    index: usize,
+    n_chains: usize,
+) -> Vec<f64> {
     let mut best: Option<(Vec<f64>, f64)> = None;
-    for _ in 0..N_START_CANDIDATES {
-        let mut x = initial_theta(post, rng);
+    let own = post
+        .start_candidates
+        .iter()
+        .skip(index)
+        .step_by(n_chains.max(1))
+        .cloned();
+    let prior_draws: Vec<Vec<f64>> = (0..N_START_CANDIDATES)
+        .map(|_| initial_theta(post, rng))
+        .collect();
+    for theta in prior_draws.into_iter().chain(own) {
+        let mut x = theta;
         if post.n_noise() > 0 {
             let noise = post.initial_noise(&x, rng);
             x.extend(noise);
@@ -207,6 +255,7 @@ fn covariance(rows: &[Vec<f64>], d: usize) -> Array2<f64> {
 
 /// One adaptive-Metropolis chain that can be extended: its random stream, position,
 /// tuned proposal and kept draws.
+#[derive(Clone)]
 struct AmChain {
     rng: rand_chacha::ChaCha20Rng,
     z: Vec<f64>,
@@ -225,10 +274,27 @@ struct AmChain {
 }
 
 impl AmChain {
-    fn new(post: &LogPosterior<'_>, seed: u64, index: usize) -> Self {
+    /// Take over `donor`'s position, density and tuning (not its random stream or draws).
+    fn adopt(&mut self, donor: &AmChain, gap: f64) {
+        self.z.clone_from(&donor.z);
+        self.lp = donor.lp;
+        self.chol.clone_from(&donor.chol);
+        self.ln_scale = donor.ln_scale;
+        self.window.clone_from(&donor.window);
+        self.window_len = donor.window_len;
+        self.window_start = donor.window_start;
+        self.window_accepted = donor.window_accepted;
+        self.next_window_end = donor.next_window_end;
+        self.chain.restarted_from = Some(Restart {
+            from: donor.chain.index,
+            gap,
+        });
+    }
+
+    fn new(post: &LogPosterior<'_>, seed: u64, index: usize, n_chains: usize) -> Self {
         let d = post.dim();
         let mut rng = crate::rng::stream(seed, index as u64);
-        let z = post.to_unconstrained(&initial_point(post, &mut rng));
+        let z = post.to_unconstrained(&initial_point(post, &mut rng, index, n_chains));
         let lp = post.ln_density(&z);
         Self {
             rng,
@@ -401,6 +467,27 @@ pub(crate) fn next_target(params: &SamplerParams, have: usize, chains: &[Chain])
     Some((have + params.draws).min(max))
 }
 
+/// Move every chain stranded more than [`STRANDED_GAP`] + `d` below the best chain to
+/// the best chain's state (the lowest index on ties). Deterministic: depends only on the
+/// chains' states, not on the thread count.
+fn rescue_stranded(states: &mut [AmChain], d: usize) {
+    let Some(best) = (0..states.len())
+        .filter(|&i| states[i].lp.is_finite())
+        .max_by(|&a, &b| states[a].lp.total_cmp(&states[b].lp).then(b.cmp(&a)))
+    else {
+        return;
+    };
+    let donor = states[best].clone();
+    for s in states.iter_mut() {
+        let gap = donor.lp - s.lp;
+        // NaN or −∞ (a chain that never found a finite density) is stranded too.
+        let within = gap <= STRANDED_GAP + d as f64;
+        if !within {
+            s.adopt(&donor, gap);
+        }
+    }
+}
+
 fn sample_am(
     post: &LogPosterior<'_>,
     params: &SamplerParams,
@@ -409,14 +496,21 @@ fn sample_am(
 ) -> Vec<Chain> {
     let mut total = params.warmup + params.draws;
     observer.start("MCMC", (params.chains * total) as u64);
+    let half = params.warmup / 2;
     let mut states: Vec<AmChain> = (0..params.chains)
         .into_par_iter()
         .map(|i| {
-            let mut c = AmChain::new(post, params.seed, i);
-            c.advance(post, params.warmup, total, stop, observer);
+            let mut c = AmChain::new(post, params.seed, i, params.chains);
+            c.advance(post, params.warmup, half, stop, observer);
             c
         })
         .collect();
+    if half > 0 {
+        rescue_stranded(&mut states, post.dim());
+    }
+    states
+        .par_iter_mut()
+        .for_each(|c| c.advance(post, params.warmup, total, stop, observer));
     loop {
         let chains: Vec<Chain> = states.iter().map(|s| s.chain.clone()).collect();
         let Some(target) = next_target(params, total - params.warmup, &chains) else {

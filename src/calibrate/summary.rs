@@ -282,6 +282,14 @@ pub fn summarize(names: &[String], noise_names: &[String], chains: &[Chain]) -> 
             },
         ));
     }
+    for c in chains {
+        if let Some(r) = c.restarted_from {
+            warnings.push(format!(
+                "chain {} was stranded halfway through warm-up ({:.4e} below chain {} in log density) and restarted from chain {}'s position: the posterior may have local modes the surrogate made far from the main one",
+                c.index, r.gap, r.from, r.from
+            ));
+        }
+    }
     if chains
         .iter()
         .any(|c| c.termination == Termination::Interrupted)
@@ -379,6 +387,9 @@ pub struct ChainWire {
     pub acceptance_rate: f64,
     pub step_scale: f64,
     pub termination: Termination,
+    /// Set when the chain was stranded and restarted from another halfway through warm-up.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub restarted_from: Option<super::sampler::Restart>,
 }
 
 /// Sampler settings in the record.
@@ -507,6 +518,7 @@ impl PosteriorBody {
                     acceptance_rate: c.acceptance_rate,
                     step_scale: c.step_scale,
                     termination: c.termination,
+                    restarted_from: c.restarted_from,
                 })
                 .collect(),
             n_draws: s.n_draws,

@@ -29,6 +29,8 @@
 //! fitness via realized discrepancies. Statistica Sinica 6, 733–807 *(equation number
 //! from memory)*.
 
+pub mod refine;
+
 use crate::calibrate::Emulator;
 use crate::study::{Experiment, Noise, Study};
 use rand::Rng;
@@ -46,6 +48,10 @@ pub const PPP_ALPHA: f64 = 0.01;
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct MeasurementCheck {
     pub quantity: String,
+    /// The control values of the measurement's condition, in the study's `controls`
+    /// order (absent without controls).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub controls: Vec<f64>,
     /// The curve's x (absent for scalar outputs).
     pub x: Option<f64>,
     pub observed: f64,
@@ -248,6 +254,7 @@ pub fn check_experiment<R: Rng + ?Sized>(
 ) -> Option<ExperimentCheck> {
     let noise_sd = drawn.noise_sd;
     let targets = e.data.targets(study.simulator.output.y.len());
+    let conditions = e.data.conditions();
     if draws.is_empty() {
         return None;
     }
@@ -311,6 +318,7 @@ pub fn check_experiment<R: Rng + ?Sized>(
         let t = &targets[*i];
         measurements.push(MeasurementCheck {
             quantity: study.simulator.output.y[t.quantity].clone(),
+            controls: conditions[t.condition].clone(),
             x: t.x,
             observed: *y,
             mean,

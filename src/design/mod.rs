@@ -63,6 +63,10 @@ pub enum Fill {
     /// (`assay check`); `seed` and `stream` are those the draws were picked with.
     #[serde(rename = "posterior-draws")]
     PosteriorDraws,
+    /// Refinement (`assay refine`): points picked among posterior draws, spread out
+    /// from the design's points by greedy maximin ([`pick_spread`]).
+    #[serde(rename = "posterior-spread")]
+    PosteriorSpread,
 }
 
 /// One round of a design: the initial points, or points added later.
@@ -185,6 +189,9 @@ fn sobol_balance_warning(n: usize) -> Option<String> {
 /// No parameters, fewer than 2 points, or for `sobol` more parameters than
 /// [`SOBOL_MAX_DIM`].
 pub fn generate(params: &[Parameter], spec: &DesignParams) -> Result<Design, DesignError> {
+    if let Some(conditions) = &spec.conditions {
+        return generate_at_conditions(params, spec, conditions);
+    }
     let (n, d) = (spec.points, params.len());
     if d == 0 {
         return Err(DesignError::NoParameters);
@@ -221,6 +228,56 @@ pub fn generate(params: &[Parameter], spec: &DesignParams) -> Result<Design, Des
         }],
         quality: Some(quality(unit.view())),
         warnings,
+    })
+}
+
+/// A design over the parameters (the variables after the controls, `params` holding the
+/// controls first), each point run at every one of the field `conditions`: the points
+/// are (condition, parameter point) pairs, parameter point by parameter point. The
+/// quality is that of the parameter points.
+fn generate_at_conditions(
+    params: &[Parameter],
+    spec: &DesignParams,
+    conditions: &[Vec<f64>],
+) -> Result<Design, DesignError> {
+    let n_c = conditions.first().map_or(0, Vec::len);
+    let inner = DesignParams {
+        conditions: None,
+        ..spec.clone()
+    };
+    let base = generate(&params[n_c..], &inner)?;
+    let mut points = Vec::with_capacity(base.points.len() * conditions.len());
+    for p in &base.points {
+        for c in conditions {
+            points.push(DesignPoint {
+                id: point_id(points.len()),
+                values: c.iter().chain(&p.values).copied().collect(),
+            });
+        }
+    }
+    let n = points.len();
+    Ok(Design {
+        names: params.iter().map(|p| p.name.clone()).collect(),
+        points,
+        rounds: base
+            .rounds
+            .into_iter()
+            .map(|r| match r {
+                Round::Initial {
+                    method,
+                    seed,
+                    search,
+                    ..
+                } => Round::Initial {
+                    method,
+                    n,
+                    seed,
+                    search,
+                },
+                other => other,
+            })
+            .collect(),
+        ..base
     })
 }
 
@@ -297,6 +354,103 @@ pub fn augment(design: &Design, params: &[Parameter], n_add: usize) -> Result<De
     Ok(out)
 }
 
+/// Add `n_add` parameter points to a design made at field `conditions`
+/// (`design.controls: from_data`, see [`generate`]), each run at every condition: the
+/// parameter points are extended as [`augment`] extends a design over the parameters
+/// alone (the same random stream and fill), then paired with the conditions.
+///
+/// # Errors
+/// As [`augment`]; also a design whose points are not parameter points × `conditions`.
+pub fn augment_at_conditions(
+    design: &Design,
+    vars: &[Parameter],
+    conditions: &[Vec<f64>],
+    n_add: usize,
+) -> Result<Design, DesignError> {
+    let n_c = conditions.first().map_or(0, Vec::len);
+    let m = conditions.len().max(1);
+    if design.points.len() % m != 0 {
+        return Err(DesignError::ParametersDiffer {
+            design: format!("{} points", design.points.len()),
+            study: format!("a multiple of the {m} field conditions"),
+        });
+    }
+    let params = &vars[n_c..];
+    // The design over the parameters alone: every m-th point, its parameter part.
+    let inner = Design {
+        names: params.iter().map(|p| p.name.clone()).collect(),
+        points: design
+            .points
+            .iter()
+            .step_by(m)
+            .map(|p| DesignPoint {
+                id: p.id.clone(),
+                values: p.values[n_c..].to_vec(),
+            })
+            .collect(),
+        rounds: design
+            .rounds
+            .iter()
+            .map(|r| match *r {
+                Round::Initial {
+                    method,
+                    n,
+                    seed,
+                    search,
+                } => Round::Initial {
+                    method,
+                    n: n / m,
+                    seed,
+                    search,
+                },
+                Round::Added {
+                    n,
+                    fill,
+                    seed,
+                    stream,
+                } => Round::Added {
+                    n: n / m,
+                    fill,
+                    seed,
+                    stream,
+                },
+            })
+            .collect(),
+        ..design.clone()
+    };
+    let grown = augment(&inner, params, n_add)?;
+    let first = design
+        .points
+        .iter()
+        .filter_map(|p| id_number(&p.id))
+        .max()
+        .unwrap_or(design.points.len());
+    let mut out = design.clone();
+    for p in &grown.points[inner.points.len()..] {
+        for c in conditions {
+            out.points.push(DesignPoint {
+                id: point_id(first + out.points.len() - design.points.len()),
+                values: c.iter().chain(&p.values).copied().collect(),
+            });
+        }
+    }
+    ensure_initial_round(&mut out, design);
+    if let Some(Round::Added {
+        fill, seed, stream, ..
+    }) = grown.rounds.last().cloned()
+    {
+        out.rounds.push(Round::Added {
+            n: n_add * m,
+            fill,
+            seed,
+            stream,
+        });
+    }
+    out.quality = grown.quality;
+    out.warnings = grown.warnings;
+    Ok(out)
+}
+
 /// Make sure `out` (a copy of `design` being extended) starts with its initial round:
 /// a record without rounds reads as one initial round of all its points.
 fn ensure_initial_round(out: &mut Design, design: &Design) {
@@ -370,6 +524,43 @@ pub fn append(
     Ok(out)
 }
 
+/// Add `n` of the candidate points `draws` (posterior draws, parameter values in the
+/// design's order) as a new round with [`Fill::PosteriorSpread`]: greedy maximin in the
+/// unit box of the design's space ([`pick_spread`]) picks each next draw as far as
+/// possible from the design's points and the draws picked before it, so the new runs
+/// cover the region where the posterior lives instead of piling up at its mode.
+///
+/// # Errors
+/// `n` = 0 or more than the draws; parameters that differ from the design's; a draw
+/// outside the box.
+pub fn spread_among(
+    design: &Design,
+    params: &[Parameter],
+    draws: &[Vec<f64>],
+    n: usize,
+    seed: u64,
+    stream: u64,
+) -> Result<Design, DesignError> {
+    if n == 0 || n > draws.len() {
+        return Err(DesignError::NothingToAdd);
+    }
+    let names: Vec<String> = params.iter().map(|p| p.name.clone()).collect();
+    if names != design.names {
+        return Err(DesignError::ParametersDiffer {
+            design: design.names.join(", "),
+            study: names.join(", "),
+        });
+    }
+    let candidates = Array2::from_shape_fn((draws.len(), params.len()), |(i, j)| {
+        to_unit(&params[j], design.space, draws[i][j])
+    });
+    let existing = design.unit_points(params);
+    let mut rng = crate::rng::stream(seed, stream);
+    let picked = pick_spread(candidates.view(), existing.view(), n, &mut rng);
+    let values: Vec<Vec<f64>> = picked.iter().map(|&i| draws[i].clone()).collect();
+    append(design, params, &values, Fill::PosteriorSpread, seed, stream)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -393,6 +584,7 @@ mod tests {
             points,
             seed: 9,
             space: DesignSpace::Range,
+            conditions: None,
         }
     }
 
@@ -418,6 +610,50 @@ mod tests {
             ));
             assert_eq!(d2.points.last().unwrap().id, "p0037");
         }
+    }
+
+    #[test]
+    fn spreading_among_draws_picks_distinct_draws_away_from_the_design() {
+        use rand::Rng;
+        let p = params(2);
+        let d0 = generate(&p, &spec(DesignMethod::Lhs, 10)).unwrap();
+        // A cloud of 200 draws in the corner [0, 0.2] x [1, 1.2] of the box [0,2]x[1,3].
+        let mut rng = crate::rng::stream(3, 0);
+        let draws: Vec<Vec<f64>> = (0..200)
+            .map(|_| vec![rng.gen_range(0.0..0.2), rng.gen_range(1.0..1.2)])
+            .collect();
+        let d1 = spread_among(&d0, &p, &draws, 6, 9, 1).unwrap();
+        assert_eq!(d1.points.len(), 16);
+        assert!(matches!(
+            d1.rounds[1],
+            Round::Added {
+                n: 6,
+                fill: Fill::PosteriorSpread,
+                ..
+            }
+        ));
+        let new: Vec<&Vec<f64>> = d1.points[10..].iter().map(|q| &q.values).collect();
+        for v in &new {
+            assert!(draws.contains(v), "{v:?} is not one of the draws");
+        }
+        let mut sorted = new.clone();
+        sorted.dedup();
+        assert_eq!(sorted.len(), 6);
+        // Greedy maximin: the picks are spread over the cloud, not bunched — their
+        // smallest pairwise distance exceeds the cloud's typical nearest-neighbour
+        // spacing (0.2 / sqrt(200) ≈ 0.014) many times over.
+        let mut dmin = f64::INFINITY;
+        for i in 0..6 {
+            for j in 0..i {
+                let d2: f64 = (0..2).map(|k| (new[i][k] - new[j][k]).powi(2)).sum();
+                dmin = dmin.min(d2.sqrt());
+            }
+        }
+        assert!(dmin > 0.05, "picks bunched: min distance {dmin}");
+        assert_eq!(
+            spread_among(&d0, &p, &draws, 0, 9, 1).unwrap_err(),
+            DesignError::NothingToAdd
+        );
     }
 
     #[test]

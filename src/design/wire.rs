@@ -227,6 +227,7 @@ mod tests {
             points: 12,
             seed: 4,
             space: DesignSpace::Range,
+            conditions: None,
         };
         let d = super::super::generate(&params, &spec).unwrap();
         let d = super::super::augment(&d, &params, 3).unwrap();

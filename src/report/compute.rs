@@ -149,7 +149,11 @@ pub struct PredictiveQuantity {
 /// each draw; s_δ the model-discrepancy sd of the value's quantity at each draw (0
 /// without a discrepancy).
 ///
-/// `model` is the experiment's surrogate with `n_outputs` output values; `draws` are
+/// With controls, the bands are drawn against each control in turn: one quantity per
+/// control, output quantity and station (`y against T`), its points the field
+/// conditions sorted by that control.
+///
+/// `model` is the experiment's field emulator with `n_outputs` entries; `draws` are
 /// parameter vectors; `drawn` the draws' noise sds for unknown noise and discrepancy sds
 /// (same length as `draws`), else `None`. Returns `None` when the surrogate's outputs do not match the
 /// field data (a stale surrogate) or there are no draws.
@@ -189,6 +193,26 @@ pub fn predictive(
             points: Vec::new(),
         })
         .collect();
+    // With controls: one band per control, quantity and station, against the control.
+    let conditions = e.data.conditions();
+    let stations = e.data.stations();
+    let n_q = study.simulator.output.y.len();
+    let mut by_control: Vec<PredictiveQuantity> = Vec::new();
+    for c in &study.controls {
+        for q in &study.simulator.output.y {
+            for x in &stations {
+                let value = match x {
+                    Some(x) => format!("{q}@{}", crate::study::placeholder::format_number(*x)),
+                    None => q.clone(),
+                };
+                by_control.push(PredictiveQuantity {
+                    experiment: e.name.clone(),
+                    quantity: format!("{value} against {}", c.name),
+                    points: Vec::new(),
+                });
+            }
+        }
+    }
     for (i, t) in targets.iter().enumerate() {
         let mean = s_m[i] / n;
         let var_m = (s_m2[i] / n - mean * mean).max(0.0);
@@ -205,15 +229,37 @@ pub fn predictive(
         let disc_var = drawn.discrepancy_sd.map_or(0.0, |d| {
             d.iter().map(|r| r[t.quantity].powi(2)).sum::<f64>() / d.len().max(1) as f64
         });
-        out[t.quantity].points.push(BandPoint {
+        let point = BandPoint {
             x: t.x,
             mean,
             sd_model,
             sd_total: (sd_model * sd_model + noise_var + disc_var).sqrt(),
             observed: t.values.clone(),
-        });
+        };
+        if study.controls.is_empty() {
+            out[t.quantity].points.push(point);
+        } else {
+            let per_control = n_q * stations.len();
+            for j in 0..study.controls.len() {
+                by_control[j * per_control + t.value]
+                    .points
+                    .push(BandPoint {
+                        x: Some(conditions[t.condition][j]),
+                        ..point.clone()
+                    });
+            }
+        }
     }
-    Some(out)
+    if study.controls.is_empty() {
+        Some(out)
+    } else {
+        for q in &mut by_control {
+            q.points
+                .sort_by(|a, b| a.x.partial_cmp(&b.x).unwrap_or(std::cmp::Ordering::Equal));
+        }
+        by_control.retain(|q| !q.points.is_empty());
+        Some(by_control)
+    }
 }
 
 /// Share of field measurements inside mean ± 2·sd_total, over every point of `qs`.

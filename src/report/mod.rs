@@ -774,11 +774,16 @@ fn predictive_section(h: &mut String, r: &ReportInput) {
             .unwrap_or_default();
         let _ = writeln!(h, "<h3>{}</h3>\n<p>{}</p>", esc(&e.name), esc(&cov));
         for q in &qs {
+            // With controls the bands are drawn against a control (`y against T`).
+            let (quantity, x_label) = match q.quantity.rsplit_once(" against ") {
+                Some((y, control)) => (y.to_string(), control.to_string()),
+                None => (q.quantity.clone(), x_label.clone()),
+            };
             h.push_str(&figure(
                 "predictive",
                 &format!("{}/{}", q.experiment, q.quantity),
-                plot::predictive_plot(q, &x_label, &q.quantity),
-                &format!("{}: {} against {x_label}, posterior predictive bands and field data (red points); below, the same minus the predictive mean.", q.experiment, q.quantity),
+                plot::predictive_plot(q, &x_label, &quantity),
+                &format!("{}: {quantity} against {x_label}, posterior predictive bands and field data (red points); below, the same minus the predictive mean.", q.experiment),
             ));
         }
     }

@@ -69,7 +69,7 @@ pub(crate) fn plan<'a>(
     let mut changed: Vec<String> = Vec::new();
     let mut n_changed = 0;
     let mut example = String::new();
-    let names = study.parameter_names();
+    let names = study.design_variable_names();
     let mut superseded = Vec::new();
     for p in &design.points {
         for e in &study.experiments {

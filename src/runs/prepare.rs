@@ -58,7 +58,8 @@ pub(crate) fn prepare(
 
     let mut values: BTreeMap<String, String> = e.settings.clone();
     let mut parameters = BTreeMap::new();
-    for (n, v) in study.parameters.iter().zip(&point.values) {
+    // Controls first, then parameters: the design's variables.
+    for (n, v) in study.design_variables().iter().zip(&point.values) {
         values.insert(n.name.clone(), placeholder::format_number(*v));
         parameters.insert(n.name.clone(), *v);
     }

@@ -189,7 +189,7 @@ pub fn load_runs(
             record_sha256: vec![],
             output_sha256: vec![],
         };
-        let names = study.parameter_names();
+        let names = study.design_variable_names();
         for p in &design.points {
             let path = run_record_path(campaign, &p.id, &e.name);
             if !path.exists() {

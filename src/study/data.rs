@@ -1,11 +1,14 @@
-//! Field (test) data: a CSV with the curve's x column (if any), one column per output
-//! quantity and optionally an sd column. Parsing is a pure function over the text.
+//! Field (test) data: a CSV with one column per control (if any), the curve's x column
+//! (if any), one column per output quantity and optionally an sd column. Parsing is a
+//! pure function over the text.
 
 /// One row of field data.
 #[derive(Debug, Clone, PartialEq)]
 pub struct FieldRow {
     /// 1-based line in the data file (header is line 1).
     pub line: usize,
+    /// One value per control, in the study's `controls` order (empty without controls).
+    pub controls: Vec<f64>,
     pub x: Option<f64>,
     /// One value per output quantity, in the study's `y` order.
     pub y: Vec<f64>,
@@ -13,9 +16,15 @@ pub struct FieldRow {
     pub sd: Option<f64>,
 }
 
-/// The replicates of one output value: quantity `quantity` at `x`.
+/// The replicates of one output value: quantity `quantity` at `x`, under condition
+/// `condition`.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Target {
+    /// Index into [`FieldData::conditions`] (0 without controls).
+    pub condition: usize,
+    /// Index of the value in a run's output vector (quantity-major, then station, as
+    /// `runs::value_names`).
+    pub value: usize,
     /// Index into the study's output quantities.
     pub quantity: usize,
     pub x: Option<f64>,
@@ -36,6 +45,7 @@ impl FieldData {
     /// optionally `sd_col`. Errors are `(line, message)`.
     pub fn parse(
         text: &str,
+        control_cols: &[String],
         x_col: Option<&str>,
         y_cols: &[String],
         sd_col: Option<&str>,
@@ -58,6 +68,10 @@ impl FieldData {
                 )
             })
         };
+        let ci = control_cols
+            .iter()
+            .map(|c| find(c))
+            .collect::<Result<Vec<_>, _>>()?;
         let xi = x_col.map(find).transpose()?;
         let yi = y_cols
             .iter()
@@ -79,6 +93,11 @@ impl FieldData {
                     Err((line, format!("`{s}` in column `{what}` is not finite")))
                 }
             };
+            let controls = ci
+                .iter()
+                .zip(control_cols)
+                .map(|(&i, n)| num(i, n))
+                .collect::<Result<Vec<_>, _>>()?;
             let x = match (xi, x_col) {
                 (Some(i), Some(n)) => Some(num(i, n)?),
                 _ => None,
@@ -98,7 +117,13 @@ impl FieldData {
                 }
                 _ => None,
             };
-            rows.push(FieldRow { line, x, y, sd });
+            rows.push(FieldRow {
+                line,
+                controls,
+                x,
+                y,
+                sd,
+            });
         }
         if rows.is_empty() {
             return Err((1, "no data rows".into()));
@@ -117,20 +142,45 @@ impl FieldData {
         out
     }
 
-    /// Group the rows into targets: for each quantity, for each station, the replicates.
-    /// The order (quantity-major, then station) is the experiment's output vector order.
+    /// Distinct control values (conditions) in order of first appearance (`[[]]` without
+    /// controls).
+    pub fn conditions(&self) -> Vec<Vec<f64>> {
+        let mut out: Vec<Vec<f64>> = Vec::new();
+        for r in &self.rows {
+            if !out.contains(&r.controls) {
+                out.push(r.controls.clone());
+            }
+        }
+        out
+    }
+
+    /// Group the rows into targets: for each condition, for each quantity, for each
+    /// station measured at that condition, the replicates. This is the order of the
+    /// experiment's field vector; without controls it is the run's output vector order
+    /// (quantity-major, then station) and `value` counts up from 0.
     pub fn targets(&self, n_quantities: usize) -> Vec<Target> {
         let stations = self.stations();
         let mut out = Vec::new();
-        for q in 0..n_quantities {
-            for &x in &stations {
-                let reps: Vec<&FieldRow> = self.rows.iter().filter(|r| r.x == x).collect();
-                out.push(Target {
-                    quantity: q,
-                    x,
-                    values: reps.iter().map(|r| r.y[q]).collect(),
-                    sds: reps.iter().map(|r| r.sd).collect(),
-                });
+        for (ci, cond) in self.conditions().iter().enumerate() {
+            for q in 0..n_quantities {
+                for (si, &x) in stations.iter().enumerate() {
+                    let reps: Vec<&FieldRow> = self
+                        .rows
+                        .iter()
+                        .filter(|r| r.x == x && &r.controls == cond)
+                        .collect();
+                    if reps.is_empty() {
+                        continue;
+                    }
+                    out.push(Target {
+                        condition: ci,
+                        value: q * stations.len() + si,
+                        quantity: q,
+                        x,
+                        values: reps.iter().map(|r| r.y[q]).collect(),
+                        sds: reps.iter().map(|r| r.sd).collect(),
+                    });
+                }
             }
         }
         out
@@ -144,7 +194,7 @@ mod tests {
     #[test]
     fn groups_replicates_by_station() {
         let text = "station,deflection\n0.5,1.0\n1.0,2.0\n0.5,1.2\n";
-        let d = FieldData::parse(text, Some("station"), &["deflection".into()], None).unwrap();
+        let d = FieldData::parse(text, &[], Some("station"), &["deflection".into()], None).unwrap();
         let t = d.targets(1);
         assert_eq!(t.len(), 2);
         assert_eq!(t[0].values, vec![1.0, 1.2]);
@@ -154,8 +204,27 @@ mod tests {
     #[test]
     fn names_line_and_column_of_a_bad_number() {
         let text = "x,y\n1,2\n2,abc\n";
-        let e = FieldData::parse(text, Some("x"), &["y".into()], None).unwrap_err();
+        let e = FieldData::parse(text, &[], Some("x"), &["y".into()], None).unwrap_err();
         assert_eq!(e.0, 3);
         assert!(e.1.contains("`abc` in column `y`"));
+    }
+
+    #[test]
+    fn groups_replicates_by_condition_then_quantity_and_station() {
+        let text = "T,x,y\n20,0,1\n40,0,2\n20,1,3\n20,0,1.5\n";
+        let d = FieldData::parse(text, &["T".into()], Some("x"), &["y".into()], None).unwrap();
+        assert_eq!(d.conditions(), vec![vec![20.0], vec![40.0]]);
+        let t = d.targets(1);
+        // T = 20: x = 0 (two replicates) and x = 1; T = 40: x = 0 only.
+        assert_eq!(t.len(), 3);
+        assert_eq!(
+            (t[0].condition, t[0].value, t[0].values.clone()),
+            (0, 0, vec![1.0, 1.5])
+        );
+        assert_eq!((t[1].condition, t[1].value), (0, 1));
+        assert_eq!(
+            (t[2].condition, t[2].value, t[2].values.clone()),
+            (1, 0, vec![2.0])
+        );
     }
 }

@@ -22,7 +22,7 @@ pub use spec::{schema_json, Backend, SlurmSpec};
 pub use validate::{
     load, parse, CalibrationParams, DesignMethod, DesignParams, DesignSpace, DiscrepancyParams,
     Experiment, FileTemplate, HyperpriorChoice, KernelChoice, MeanChoice, Noise, OutputFormat,
-    OutputSpec, Parameter, Prior, Simulator, Study, SurrogateParams,
+    OutputSpec, Parameter, Prior, RefineParams, Simulator, Study, SurrogateParams,
 };
 
 /// A study parsed from `text` whose every data file reads as `data` (unit tests of the

@@ -20,6 +20,11 @@ pub struct StudySpec {
     pub name: String,
     /// The constants to calibrate.
     pub parameters: Vec<ParameterSpec>,
+    /// Test conditions the experimenter sets (temperature, rate, …): passed to the
+    /// simulator through `{{placeholders}}` like parameters, and a column of every
+    /// experiment's field data. The surrogate spans controls and parameters together.
+    #[serde(default)]
+    pub controls: Vec<ControlSpec>,
     /// How to run the simulator.
     pub simulator: SimulatorSpec,
     /// Test set-ups, each with field data; one run per design point per experiment.
@@ -49,6 +54,43 @@ pub struct ChecksSpec {
     /// posterior mean, compared with the surrogate there. Default 0 (none).
     #[serde(default)]
     pub confirmation_runs: usize,
+    /// Sequential refinement (`assay refine`, and `assay all` when present): add runs
+    /// where the posterior lives until the surrogate agrees with the simulator there.
+    #[serde(default)]
+    pub refine: Option<RefineSpec>,
+}
+
+/// `checks.refine`: rounds of new runs among the posterior draws.
+#[derive(Debug, Clone, Deserialize, PartialEq, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct RefineSpec {
+    /// At most this many rounds (each: add, run, fit, calibrate, confirm). Default 2.
+    #[serde(default = "default_refine_rounds")]
+    pub rounds: usize,
+    /// Points added per round. Default 10.
+    #[serde(default = "default_refine_add")]
+    pub add: usize,
+    /// Share of each round's points placed over the whole box (gap filling) rather
+    /// than among the posterior draws, so the surrogate stays sane elsewhere. Default 0.2.
+    #[serde(default = "default_refine_global")]
+    pub global_share: f64,
+    /// Stop when every experiment's confirmation RMSE is at most this many noise sds.
+    /// Default 0.5.
+    #[serde(default = "default_refine_tolerance")]
+    pub tolerance: f64,
+}
+
+fn default_refine_rounds() -> usize {
+    2
+}
+fn default_refine_add() -> usize {
+    10
+}
+fn default_refine_global() -> f64 {
+    0.2
+}
+fn default_refine_tolerance() -> f64 {
+    0.5
 }
 
 #[derive(Debug, Clone, Deserialize, JsonSchema)]
@@ -62,6 +104,29 @@ pub struct ParameterSpec {
     /// Default `uniform`.
     #[serde(default)]
     pub prior: PriorSpec,
+}
+
+/// A control variable: a test condition with a known value per field measurement.
+#[derive(Debug, Clone, Deserialize, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct ControlSpec {
+    pub name: String,
+    #[serde(default)]
+    pub unit: Option<String>,
+    /// `[low, high]`: the range the simulator is run over; every field condition must
+    /// lie in it.
+    pub range: [f64; 2],
+}
+
+/// How the design places the controls (`design.controls`).
+#[derive(Debug, Clone, Copy, Default, Deserialize, serde::Serialize, PartialEq, Eq, JsonSchema)]
+#[serde(rename_all = "snake_case")]
+pub enum ControlDesign {
+    /// One space-filling design over controls and parameters together.
+    #[default]
+    Joint,
+    /// A design over the parameters, each point run at every distinct field condition.
+    FromData,
 }
 
 /// `uniform` | `{normal: {mean, sd}}` | `{lognormal: {mu, sigma}}`.
@@ -181,6 +246,9 @@ pub struct DesignSpec {
     /// Default `range`.
     #[serde(default)]
     pub space: DesignSpace,
+    /// With `controls`: `joint` (default) or `from_data`.
+    #[serde(default)]
+    pub controls: ControlDesign,
 }
 
 impl Default for DesignSpec {
@@ -190,6 +258,7 @@ impl Default for DesignSpec {
             points: None,
             seed: default_seed(),
             space: DesignSpace::default(),
+            controls: ControlDesign::default(),
         }
     }
 }

@@ -10,7 +10,9 @@ use super::spec::*;
 use std::collections::{BTreeMap, BTreeSet};
 use std::path::{Component, Path, PathBuf};
 
-pub use super::spec::{DesignMethod, DesignSpace, HyperpriorChoice, KernelChoice, MeanChoice};
+pub use super::spec::{
+    ControlDesign, DesignMethod, DesignSpace, HyperpriorChoice, KernelChoice, MeanChoice,
+};
 
 /// Placeholders assay provides itself; parameters and settings may not take these names.
 pub const RESERVED: [&str; 3] = ["run_dir", "run_id", "study_dir"];
@@ -98,6 +100,10 @@ pub struct DesignParams {
     pub points: usize,
     pub seed: u64,
     pub space: DesignSpace,
+    /// With `from_data`: the distinct field conditions of every experiment (first
+    /// appearance, experiments in order); each parameter point is run at each of them.
+    /// `None` for a joint design (or no controls).
+    pub conditions: Option<Vec<Vec<f64>>>,
 }
 
 /// Surrogate settings after defaults.
@@ -166,6 +172,9 @@ pub struct Study {
     /// The folder relative paths are resolved against.
     pub dir: PathBuf,
     pub parameters: Vec<Parameter>,
+    /// `controls`: test conditions, as variables with a uniform "prior" over their range
+    /// (empty when the study has none).
+    pub controls: Vec<Parameter>,
     pub simulator: Simulator,
     pub experiments: Vec<Experiment>,
     pub design: DesignParams,
@@ -178,6 +187,37 @@ pub struct Study {
     pub calibration: CalibrationParams,
     /// `checks.confirmation_runs`: posterior draws to confirm with the simulator.
     pub confirmation_runs: usize,
+    /// `checks.refine` (checked), when present.
+    pub refine: Option<RefineParams>,
+}
+
+/// `checks.refine`, checked.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct RefineParams {
+    /// At most this many rounds (≥ 1).
+    pub rounds: usize,
+    /// Points per round (≥ 1).
+    pub add: usize,
+    /// Share of the points over the whole box, in [0, 1].
+    pub global_share: f64,
+    /// Stop when every confirmation RMSE / noise sd is at most this (> 0).
+    pub tolerance: f64,
+}
+
+impl RefineParams {
+    /// Defaults of `checks.refine` (used by `assay refine` without the key).
+    pub const DEFAULT: Self = Self {
+        rounds: 2,
+        add: 10,
+        global_share: 0.2,
+        tolerance: 0.5,
+    };
+
+    /// Points per round over the whole box: the share of `add`, rounded; the rest go
+    /// among the posterior draws.
+    pub fn n_global(&self) -> usize {
+        ((self.add as f64 * self.global_share).round() as usize).min(self.add)
+    }
 }
 
 impl Study {
@@ -192,6 +232,24 @@ impl Study {
     /// Names of the parameters, in order.
     pub fn parameter_names(&self) -> Vec<String> {
         self.parameters.iter().map(|p| p.name.clone()).collect()
+    }
+
+    /// What the design spans and the runs and the surrogate take as inputs: the
+    /// controls, then the parameters.
+    pub fn design_variables(&self) -> Vec<Parameter> {
+        self.controls
+            .iter()
+            .chain(&self.parameters)
+            .cloned()
+            .collect()
+    }
+
+    /// Names of [`Self::design_variables`].
+    pub fn design_variable_names(&self) -> Vec<String> {
+        self.design_variables()
+            .into_iter()
+            .map(|p| p.name)
+            .collect()
     }
 }
 
@@ -430,6 +488,60 @@ pub fn parse(
         });
     }
 
+    // Controls: names like parameters', distinct from them.
+    let mut controls = Vec::new();
+    for (i, p) in spec.controls.iter().enumerate() {
+        let key = format!("controls[{i}]");
+        if !placeholder::is_identifier(&p.name) {
+            c.err(
+                format!("{key}.name"),
+                format!(
+                    "`{}` is not a valid control name (expected [A-Za-z_][A-Za-z0-9_]*)",
+                    p.name
+                ),
+            );
+        } else if RESERVED.contains(&p.name.as_str()) {
+            c.err(
+                format!("{key}.name"),
+                format!("`{}` is reserved for the run folder placeholders", p.name),
+            );
+        } else if !seen.insert(p.name.clone()) {
+            c.err(
+                format!("{key}.name"),
+                format!(
+                    "control name `{}` is already a parameter or another control",
+                    p.name
+                ),
+            );
+        }
+        let [lo, hi] = p.range;
+        if !(lo.is_finite() && hi.is_finite()) {
+            c.err(
+                format!("{key}.range"),
+                format!("range [{lo}, {hi}] must be finite"),
+            );
+        } else if lo >= hi {
+            c.err(
+                format!("{key}.range"),
+                format!("range [{lo}, {hi}] is reversed or empty (expected [low, high] with low < high)"),
+            );
+        }
+        controls.push(Parameter {
+            name: p.name.clone(),
+            unit: p.unit.clone(),
+            lo,
+            hi,
+            prior: Prior::Uniform,
+        });
+    }
+    if spec.controls.is_empty() && spec.design.controls == ControlDesign::FromData {
+        c.err(
+            "design.controls",
+            "`from_data` places the controls, but the study has no `controls`",
+        );
+    }
+    let control_names: Vec<String> = controls.iter().map(|p| p.name.clone()).collect();
+
     // Simulator.
     let sim = &spec.simulator;
     if sim.command.is_empty() || sim.command[0].is_empty() {
@@ -522,10 +634,12 @@ pub fn parse(
                     format!("{key}.settings.{k}"),
                     format!("`{k}` is not a valid setting name (expected [A-Za-z_][A-Za-z0-9_]*)"),
                 );
-            } else if parameters.iter().any(|p| &p.name == k) || RESERVED.contains(&k.as_str()) {
+            } else if parameters.iter().chain(&controls).any(|p| &p.name == k)
+                || RESERVED.contains(&k.as_str())
+            {
                 c.err(
                     format!("{key}.settings.{k}"),
-                    format!("setting `{k}` clashes with a parameter or run placeholder"),
+                    format!("setting `{k}` clashes with a parameter, control or run placeholder"),
                 );
             }
             let text = match v {
@@ -571,8 +685,35 @@ pub fn parse(
                 None
             }
             Ok(text) => {
-                match FieldData::parse(&text, sim.output.x.as_deref(), &sim.output.y, sd_col) {
-                    Ok(d) => Some(d),
+                match FieldData::parse(
+                    &text,
+                    &control_names,
+                    sim.output.x.as_deref(),
+                    &sim.output.y,
+                    sd_col,
+                ) {
+                    Ok(d) => {
+                        // A condition outside a control's range would make the
+                        // surrogate extrapolate.
+                        for r in &d.rows {
+                            for (v, p) in r.controls.iter().zip(&controls) {
+                                if !(p.lo..=p.hi).contains(v) {
+                                    c.err(
+                                        format!("{key}.data"),
+                                        format!(
+                                            "{}:{}: {} = {v} lies outside the control's range [{}, {}]",
+                                            data_path.display(),
+                                            r.line,
+                                            p.name,
+                                            p.lo,
+                                            p.hi
+                                        ),
+                                    );
+                                }
+                            }
+                        }
+                        Some(d)
+                    }
                     Err((line, msg)) => {
                         c.err(
                             format!("{key}.data"),
@@ -585,7 +726,11 @@ pub fn parse(
         };
 
         // Placeholders: every name must be known for this experiment.
-        let mut known: BTreeSet<String> = parameters.iter().map(|p| p.name.clone()).collect();
+        let mut known: BTreeSet<String> = parameters
+            .iter()
+            .chain(&controls)
+            .map(|p| p.name.clone())
+            .collect();
         known.extend(settings.keys().cloned());
         known.insert("run_dir".into());
         known.insert("run_id".into());
@@ -632,7 +777,27 @@ pub fn parse(
     }
 
     let d = &spec.design;
-    let points = d.points.unwrap_or(10 * parameters.len().max(1));
+    let from_data = !controls.is_empty() && d.controls == ControlDesign::FromData;
+    // Joint: 10 per design variable; from_data: 10 per parameter, each run at every
+    // field condition.
+    let points = d.points.unwrap_or(
+        10 * if from_data {
+            parameters.len().max(1)
+        } else {
+            (parameters.len() + controls.len()).max(1)
+        },
+    );
+    let conditions = from_data.then(|| {
+        let mut all: Vec<Vec<f64>> = Vec::new();
+        for e in &experiments {
+            for cond in e.data.conditions() {
+                if !all.contains(&cond) {
+                    all.push(cond);
+                }
+            }
+        }
+        all
+    });
     if points < 2 {
         c.err(
             "design.points",
@@ -710,6 +875,32 @@ pub fn parse(
             );
         }
     }
+    let refine = spec.checks.refine.as_ref().map(|r| {
+        if r.rounds == 0 {
+            c.err("checks.refine.rounds", "rounds must be at least 1");
+        }
+        if r.add == 0 {
+            c.err("checks.refine.add", "add must be at least 1");
+        }
+        if !(0.0..=1.0).contains(&r.global_share) {
+            c.err(
+                "checks.refine.global_share",
+                format!("global_share {} must lie in [0, 1]", r.global_share),
+            );
+        }
+        if !(r.tolerance > 0.0 && r.tolerance.is_finite()) {
+            c.err(
+                "checks.refine.tolerance",
+                format!("tolerance {} must be a positive number", r.tolerance),
+            );
+        }
+        RefineParams {
+            rounds: r.rounds,
+            add: r.add,
+            global_share: r.global_share,
+            tolerance: r.tolerance,
+        }
+    });
     let prior_from = cal.prior_from.as_ref().and_then(|p| {
         let path = dir.join(p);
         if !path.is_file() {
@@ -751,6 +942,7 @@ pub fn parse(
         file: file.to_path_buf(),
         dir: dir.to_path_buf(),
         parameters,
+        controls,
         simulator: Simulator {
             command: sim.command.clone(),
             files,
@@ -770,6 +962,7 @@ pub fn parse(
             points,
             seed: d.seed,
             space: d.space,
+            conditions,
         },
         jobs: spec.execution.jobs,
         backend: spec.execution.backend,
@@ -783,6 +976,7 @@ pub fn parse(
             hyperprior: spec.surrogate.hyperprior,
         },
         confirmation_runs: spec.checks.confirmation_runs,
+        refine,
         calibration: CalibrationParams {
             chains: cal.chains,
             warmup: cal.warmup,

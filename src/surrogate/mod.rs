@@ -8,6 +8,7 @@
 //! Must not: open files, print, or create its own RNG (streams come from the seed).
 
 pub mod basis;
+mod conditioned;
 mod error;
 mod fit;
 pub mod gp;
@@ -18,6 +19,7 @@ mod validation;
 mod wire;
 
 pub use basis::Basis;
+pub use conditioned::{ConditionedModel, FieldEmulator};
 pub use error::SurrogateError;
 pub use fit::{
     fit_hyperparameters, objective, FitOutcome, FitParams, HyperBounds, LengthScalePrior,

@@ -169,6 +169,11 @@ fn mean_sd(col: &[f64]) -> (f64, f64) {
 }
 
 impl ExperimentModel {
+    /// The basis in output units (p × K).
+    pub(crate) fn basis_out(&self) -> &Array2<f64> {
+        &self.basis_out
+    }
+
     fn unit(&self, theta: &[f64]) -> Array2<f64> {
         Array2::from_shape_fn((1, theta.len()), |(_, j)| {
             (theta[j] - self.lo[j]) / (self.hi[j] - self.lo[j])
