@@ -638,7 +638,13 @@ pub fn discrepancy_of(study: &Study, e: &crate::study::Experiment) -> Option<Dis
         return None;
     }
     let y = &study.simulator.output.y;
-    Some(Discrepancy::new(d, y, &e.data.targets(y.len())))
+    let targets = e.data.targets(y.len());
+    let disc = Discrepancy::new(d, y, &targets);
+    Some(if study.controls.is_empty() {
+        disc
+    } else {
+        disc.over_controls(d, &targets, &e.data.conditions(), &study.controls)
+    })
 }
 
 /// The discrepancy sd of each output quantity of `e` at each of `rows` (thinned sample

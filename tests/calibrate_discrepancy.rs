@@ -185,7 +185,7 @@ fn discrepancy_settings_are_checked_one_invariant_at_a_time() {
         (
             "",
             "  discrepancy:\n    length_scale: {fixed: 0.5}\n",
-            "11: calibration.discrepancy.length_scale: length_scale needs curve outputs (`simulator.output.x`); with scalar outputs the discrepancy is an independent offset per output quantity",
+            "11: calibration.discrepancy.length_scale: length_scale needs curve outputs (`simulator.output.x`) or `controls`; with scalar outputs and no controls the discrepancy is an independent offset per output quantity",
         ),
         (
             "x: x, ",

@@ -198,6 +198,7 @@ fn fixed_discrepancy_matches_the_linear_gaussian_posterior_with_its_covariance()
             x: Some(XS.to_vec()),
             sd: Hyper::Fixed(DELTA_SD),
             length_scale: Some(Hyper::Fixed(DELTA_ELL)),
+            at: None,
         }],
     };
     let names: Vec<String> = ["t1", "t2", "t3"].iter().map(|s| s.to_string()).collect();

@@ -162,6 +162,7 @@ fn two_quantity_discrepancy(
                 x: Some(xs.clone()),
                 sd: sd[q],
                 length_scale: Some(ell[q]),
+                at: None,
             })
             .collect(),
     }

@@ -115,8 +115,11 @@ pub struct DiscrepancyBlock {
     /// same x recurs at every field condition: δ is a function of x alone).
     pub x: Option<Vec<f64>>,
     pub sd: Hyper,
-    /// `None` without x.
+    /// `None` without x (or, with controls, without two distinct positions).
     pub length_scale: Option<Hyper>,
+    /// With controls: each value's position in the unit box of the controls (then of x
+    /// for curves), used instead of `x`: δ is then a function of the test conditions.
+    pub at: Option<Vec<Vec<f64>>>,
 }
 
 /// The discrepancy term of one experiment.
@@ -202,6 +205,7 @@ impl Discrepancy {
                     x,
                     sd,
                     length_scale,
+                    at: None,
                 })
             })
             .collect();
@@ -209,6 +213,62 @@ impl Discrepancy {
             kernel: params.kernel.into(),
             blocks,
         }
+    }
+
+    /// Make δ a function of the test conditions (`controls`): each value's position is
+    /// its condition's control values scaled to the unit box of `controls`, followed for
+    /// curves by its x scaled to the span of the data's x. The correlation is
+    /// ρ(‖a − b‖ / ℓ) (Euclidean distance in that box, one length-scale). A block with
+    /// at least two distinct positions gets a length-scale: the study's
+    /// `length_scale` (then in unit-box units), else lognormal with median 0.5 (half the
+    /// box) and sigma [`DEFAULT_LENGTH_SIGMA`].
+    pub fn over_controls(
+        mut self,
+        params: &DiscrepancyParams,
+        targets: &[Target],
+        conditions: &[Vec<f64>],
+        controls: &[crate::study::Parameter],
+    ) -> Self {
+        let xs: Vec<f64> = targets.iter().filter_map(|t| t.x).collect();
+        let x_lo = xs.iter().copied().fold(f64::INFINITY, f64::min);
+        let x_hi = xs.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+        for b in &mut self.blocks {
+            let at: Vec<Vec<f64>> = b
+                .index
+                .iter()
+                .map(|&j| {
+                    let t = &targets[j];
+                    let mut v: Vec<f64> = conditions[t.condition]
+                        .iter()
+                        .zip(controls)
+                        .map(|(c, p)| (c - p.lo) / (p.hi - p.lo))
+                        .collect();
+                    if let Some(x) = t.x {
+                        if x_hi > x_lo {
+                            v.push((x - x_lo) / (x_hi - x_lo));
+                        }
+                    }
+                    v
+                })
+                .collect();
+            let mut distinct = at.clone();
+            distinct.sort_by(|a, b| a.partial_cmp(b).unwrap_or(std::cmp::Ordering::Equal));
+            distinct.dedup();
+            if distinct.len() < 2 {
+                continue;
+            }
+            b.x = None;
+            b.length_scale = Some(match params.length_scale {
+                Some(LengthScaleSpec::Fixed(v)) => Hyper::Fixed(v),
+                Some(LengthScaleSpec::Lognormal { mu, sigma }) => Hyper::LogNormal { mu, sigma },
+                None => Hyper::LogNormal {
+                    mu: 0.5f64.ln(),
+                    sigma: DEFAULT_LENGTH_SIGMA,
+                },
+            });
+            b.at = Some(at);
+        }
+        self
     }
 
     /// The hyperparameters in state order: for each block its sd, then its
@@ -269,11 +329,23 @@ impl Discrepancy {
     ///
     /// # Formula
     /// cov[i, j] += s_q² ρ(|x_i − x_j| / ℓ_q) for values i, j of quantity q (s_q² on the
-    /// diagonal without x); nothing across quantities.
+    /// diagonal without x; with controls ‖a_i − a_j‖ between the values' positions in
+    /// the unit box, [`Self::over_controls`]); nothing across quantities.
     pub fn add_covariance(&self, values: &[f64], cov: &mut Array2<f64>) {
         for (b, (s, l)) in self.blocks.iter().zip(self.resolve(values)) {
             let s2 = s * s;
             for (a, &i) in b.index.iter().enumerate() {
+                if let (Some(at), Some(l)) = (&b.at, l) {
+                    for (c, &j) in b.index.iter().enumerate() {
+                        let d2: f64 = at[a]
+                            .iter()
+                            .zip(&at[c])
+                            .map(|(u, v)| (u - v) * (u - v))
+                            .sum();
+                        cov[[i, j]] += s2 * self.kernel.corr(d2.sqrt() / l);
+                    }
+                    continue;
+                }
                 match (&b.x, l) {
                     (Some(x), Some(l)) => {
                         for (c, &j) in b.index.iter().enumerate() {
@@ -290,6 +362,51 @@ impl Discrepancy {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// With controls, δ's covariance between measurements is s² ρ(‖a − b‖/ℓ) over the
+    /// conditions' positions in the unit box of the controls (R&W eq. 4.9 for the
+    /// squared exponential: ρ(r) = exp(−r²/2)); equal conditions share s².
+    #[test]
+    fn over_controls_the_covariance_follows_the_conditions() {
+        use crate::study::{KernelChoice, Parameter, Prior};
+        let params = DiscrepancyParams {
+            kernel: KernelChoice::SquaredExponential,
+            sd: Some(DiscrepancySdSpec::Fixed(2.0)),
+            length_scale: Some(LengthScaleSpec::Fixed(0.5)),
+            experiments: vec!["e".into()],
+        };
+        // Scalar output at T = 10, 30 (range [0, 40]: unit positions 0.25 and 0.75).
+        let targets: Vec<Target> = [0usize, 1]
+            .iter()
+            .map(|&c| Target {
+                condition: c,
+                value: 0,
+                quantity: 0,
+                x: None,
+                values: vec![1.0],
+                sds: vec![None],
+            })
+            .collect();
+        let controls = [Parameter {
+            name: "T".into(),
+            unit: None,
+            lo: 0.0,
+            hi: 40.0,
+            prior: Prior::Uniform,
+        }];
+        let d = Discrepancy::new(&params, &["y".into()], &targets).over_controls(
+            &params,
+            &targets,
+            &[vec![10.0], vec![30.0]],
+            &controls,
+        );
+        let mut cov = Array2::zeros((2, 2));
+        d.add_covariance(&[], &mut cov);
+        assert!((cov[[0, 0]] - 4.0).abs() < 1e-15);
+        // Distance 0.5 at length-scale 0.5: r = 1.
+        assert!((cov[[0, 1]] - 4.0 * (-0.5f64).exp()).abs() < 1e-15);
+        assert!((cov[[1, 0]] - cov[[0, 1]]).abs() < 1e-15);
+    }
 
     #[test]
     fn priors_match_their_closed_forms() {

@@ -1012,9 +1012,9 @@ fn check_discrepancy(
         _ => {}
     }
     match d.length_scale {
-        Some(_) if spec.simulator.output.x.is_none() => c.err(
+        Some(_) if spec.simulator.output.x.is_none() && spec.controls.is_empty() => c.err(
             "calibration.discrepancy.length_scale",
-            "length_scale needs curve outputs (`simulator.output.x`); with scalar outputs the discrepancy is an independent offset per output quantity",
+            "length_scale needs curve outputs (`simulator.output.x`) or `controls`; with scalar outputs and no controls the discrepancy is an independent offset per output quantity",
         ),
         Some(LengthScaleSpec::Fixed(v)) if !(v > 0.0 && v.is_finite()) => c.err(
             "calibration.discrepancy.length_scale.fixed",
