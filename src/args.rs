@@ -59,12 +59,12 @@ pub enum Command {
     Fit(StudyArg),
     /// Sample the posterior against the field data (posterior.yaml, posterior-samples.csv).
     #[command(
-        after_help = "Example:\n  assay calibrate models/cantilever/study.yaml\n\nCtrl-C stops sampling and keeps the draws made so far (recorded as interrupted)."
+        after_help = "Example:\n  assay calibrate models/cantilever/study.yaml\n\nThe likelihood counts the measurement noise, the surrogate's predictive covariance and,\nwith calibration.discrepancy, a Gaussian-process model discrepancy over the curve's x\nwhose sd and length-scale are sampled (or fixed) and reported (see docs/methods.md).\nCtrl-C stops sampling and keeps the draws made so far (recorded as interrupted)."
     )]
     Calibrate(StudyArg),
     /// Posterior predictive checks against the field data (checks.yaml): does the calibrated model reproduce them?
     #[command(
-        after_help = "Example:\n  assay check models/cantilever/study.yaml\n\nFor every field measurement: the predictive mean and 95 % interval from the posterior draws\n(surrogate mean and variance plus measurement noise), the standardised residual, the share\nof measurements inside their intervals against its binomial 99 % band, and the posterior\npredictive p-value of a chi-square discrepancy. Says plainly whether the calibration passes."
+        after_help = "Example:\n  assay check models/cantilever/study.yaml\n\nFor every field measurement: the predictive mean and 95 % interval from the posterior draws\n(surrogate mean and variance plus measurement noise and any model discrepancy), the standardised residual, the share\nof measurements inside their intervals against its binomial 99 % band, and the posterior\npredictive p-value of a chi-square discrepancy. Says plainly whether the calibration passes."
     )]
     Check(StudyArg),
     /// Surrogate mean and sd at given points (CSV to stdout or --out).

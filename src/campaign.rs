@@ -6,8 +6,8 @@
 
 use crate::audit::{self, Freshness};
 use crate::calibrate::{
-    sample, summarize, Emulator, ExperimentLikelihood, LogPosterior, PosteriorBody,
-    PosteriorSummary, SamplerParams,
+    sample, summarize, Discrepancy, Emulator, ExperimentLikelihood, HyperKind, LogPosterior,
+    PosteriorBody, PosteriorSummary, SamplerParams,
 };
 use crate::design::{self, Design, DesignBody};
 use crate::progress::Observer;
@@ -533,7 +533,11 @@ pub fn calibrate_stage(
             .into());
         }
         let targets = e.data.targets(c.study.simulator.output.y.len());
-        experiments.push((em as &dyn Emulator, ExperimentLikelihood::new(e, &targets)));
+        let mut lik = ExperimentLikelihood::new(e, &targets);
+        if let Some(d) = discrepancy_of(&c.study, e) {
+            lik = lik.with_discrepancy(d);
+        }
+        experiments.push((em as &dyn Emulator, lik));
     }
     let cal = &c.study.calibration;
     let params = SamplerParams {
@@ -578,30 +582,40 @@ pub fn calibrate_stage(
     let chains = sample(&post, &params, stop, observer);
     let names = c.study.parameter_names();
     let noise_names = post.noise_names();
-    let summary = summarize(&names, &noise_names, &chains);
+    let summary = summarize(&names, &noise_names, &chains).with_discrepancy(&post, &chains);
+    let discrepancy_labels = post.discrepancy_labels();
     let n_eval = post
         .n_evaluations
         .load(std::sync::atomic::Ordering::Relaxed);
 
     // Contract: chain,draw,<parameters...>,<noise...>,log_posterior, one noise sd column
-    // `noise_sd.<experiment>` per estimated noise.
+    // `noise_sd.<experiment>` per estimated noise; then (an extension) one column per
+    // sampled discrepancy hyperparameter, `discrepancy_sd.<experiment>.<quantity>` and
+    // `discrepancy_length_scale.<experiment>.<quantity>`.
     let mut csv = csv::Writer::from_writer(Vec::new());
     let mut header = vec!["chain".to_string(), "draw".to_string()];
     header.extend(names.iter().cloned());
     header.extend(noise_names.iter().map(|e| format!("noise_sd.{e}")));
+    header.extend(
+        discrepancy_labels
+            .iter()
+            .map(|(e, q, kind, _)| format!("{}.{e}.{q}", kind.column_prefix())),
+    );
     header.push("log_posterior".into());
     csv.write_record(&header)?;
     for ch in &chains {
-        for (i, ((th, nv), lp)) in ch
+        for (i, (((th, nv), dv), lp)) in ch
             .theta
             .iter()
             .zip(&ch.noise_var)
+            .zip(&ch.discrepancy)
             .zip(&ch.ln_posterior)
             .enumerate()
         {
             let mut row = vec![ch.index.to_string(), i.to_string()];
             row.extend(th.iter().map(|v| format!("{v}")));
             row.extend(nv.iter().map(|v| format!("{}", v.sqrt())));
+            row.extend(dv.iter().map(|v| format!("{v}")));
             row.push(format!("{lp}"));
             csv.write_record(&row)?;
         }
@@ -615,6 +629,70 @@ pub fn calibrate_stage(
     record.body.settings.prior_from = cal.prior_from.as_ref().map(|p| p.display().to_string());
     write_record(&c.path(POSTERIOR_FILE), &record)?;
     Ok(summary)
+}
+
+/// The model discrepancy of experiment `e` when the study gives it one.
+pub fn discrepancy_of(study: &Study, e: &crate::study::Experiment) -> Option<Discrepancy> {
+    let d = study.calibration.discrepancy.as_ref()?;
+    if !d.experiments.contains(&e.name) {
+        return None;
+    }
+    let y = &study.simulator.output.y;
+    let targets = e.data.targets(y.len());
+    let disc = Discrepancy::new(d, y, &targets);
+    Some(if study.controls.is_empty() {
+        disc
+    } else {
+        disc.over_controls(d, &targets, &e.data.conditions(), &study.controls)
+    })
+}
+
+/// The discrepancy sd of each output quantity of `e` at each of `rows` (thinned sample
+/// rows): the `discrepancy_sd.<experiment>.<quantity>` columns when sampled, the fixed
+/// value otherwise; `None` without a discrepancy.
+///
+/// # Errors
+/// A sampled sd without its column in the samples.
+fn discrepancy_sd_draws<R: AsRef<[f64]>>(
+    study: &Study,
+    e: &crate::study::Experiment,
+    samples: &crate::report::compute::Samples,
+    rows: &[R],
+) -> Result<Option<Vec<Vec<f64>>>> {
+    let Some(d) = discrepancy_of(study, e) else {
+        return Ok(None);
+    };
+    let n_q = study.simulator.output.y.len();
+    let mut out = vec![vec![0.0; n_q]; rows.len()];
+    for b in &d.blocks {
+        let q = study
+            .simulator
+            .output
+            .y
+            .iter()
+            .position(|n| *n == b.quantity)
+            .expect("blocks are named after the study's quantities");
+        match b.sd {
+            crate::calibrate::Hyper::Fixed(v) => out.iter_mut().for_each(|r| r[q] = v),
+            _ => {
+                let name = format!(
+                    "{}.{}.{}",
+                    HyperKind::Sd.column_prefix(),
+                    e.name,
+                    b.quantity
+                );
+                let j = samples.column(&name).ok_or_else(|| {
+                    InputError(format!(
+                        "the samples have no column `{name}`: run `assay calibrate` again"
+                    ))
+                })?;
+                for (o, r) in out.iter_mut().zip(rows) {
+                    o[q] = r.as_ref()[j];
+                }
+            }
+        }
+    }
+    Ok(Some(out))
 }
 
 fn mtime(p: &Path) -> Option<SystemTime> {
@@ -689,8 +767,13 @@ pub fn check_stage(c: &Campaign, confirm: Option<Confirm<'_>>) -> Result<crate::
             .map(|j| rows.iter().map(|r| r[j]).collect());
         // Streams past those of the chains: the checks never share random numbers with
         // the sampler.
+        let disc = discrepancy_sd_draws(&c.study, e, &samples, &rows)?;
         let mut rng = crate::rng::stream(seed, CHECK_STREAM_BASE + k as u64);
-        let check = check_experiment(&c.study, e, &model, &draws, noise.as_deref(), &mut rng)
+        let predictive = crate::check::DrawnVariances {
+            noise_sd: noise.as_deref(),
+            discrepancy_sd: disc.as_deref(),
+        };
+        let check = check_experiment(&c.study, e, &model, &draws, predictive, &mut rng)
             .ok_or_else(|| {
                 InputError(format!(
                     "the surrogate's outputs of `{}` do not match its field data: run `assay all` to bring the records up to date",
@@ -1090,6 +1173,17 @@ pub fn report_stage(c: &Campaign, out: &Path) -> Result<()> {
             let noise: Option<Vec<f64>> = samples
                 .column(&format!("noise_sd.{}", e.name))
                 .map(|j| rows.iter().map(|r| r[j]).collect());
+            let disc = match discrepancy_sd_draws(&c.study, e, &samples, &rows) {
+                Ok(d) => d,
+                Err(err) => {
+                    notes.push(format!("{}: {err}", e.name));
+                    continue;
+                }
+            };
+            let drawn = crate::check::DrawnVariances {
+                noise_sd: noise.as_deref(),
+                discrepancy_sd: disc.as_deref(),
+            };
             // With controls the emulator gives the field vector (one entry per target)
             // when the surrogate's outputs are the runs' values.
             let n_outputs = if c.study.controls.is_empty() {
@@ -1105,7 +1199,7 @@ pub fn report_stage(c: &Campaign, out: &Path) -> Result<()> {
                 &field_emulator(c, e, model),
                 n_outputs,
                 &draws,
-                noise.as_deref(),
+                drawn,
             ) {
                 Some(q) => predictive.extend(q),
                 None if !draws.is_empty() => notes.push(format!(

@@ -358,6 +358,33 @@ fn print_posterior(c: &Campaign) -> Result<()> {
             n.diagnostics.ess_tail
         );
     }
+    for (e, per_quantity) in &b.discrepancy {
+        for (q, d) in per_quantity {
+            let rows = std::iter::once(("δ sd", &d.sd))
+                .chain(d.length_scale.as_ref().map(|l| ("δ length", l)));
+            for (what, h) in rows {
+                let label = format!("{e}.{q}");
+                match (&h.posterior, &h.diagnostics, h.value) {
+                    (Some(m), Some(dg), _) => out!(
+                        "  {:<10} {:<9} {:>11} {:>10} {:>11} {:>11} {:>11} {:>11} {:>7.3} {:>8.0} {:>8.0}",
+                        what,
+                        label,
+                        sig(m.mean, 5),
+                        sig(m.sd, 3),
+                        sig(m.median, 5),
+                        sig(m.q025, 5),
+                        sig(m.q975, 5),
+                        "-",
+                        dg.rhat,
+                        dg.ess_bulk,
+                        dg.ess_tail
+                    ),
+                    (_, _, Some(v)) => out!("  {:<10} {:<9} {:>11} (fixed)", what, label, sig(v, 5)),
+                    _ => {}
+                }
+            }
+        }
+    }
     for w in &b.warnings {
         out!("  warning: {w}");
     }

@@ -90,3 +90,139 @@ fn prior_from_an_earlier_campaign_is_used_and_hashed() {
         String::from_utf8_lossy(&out.stdout)
     );
 }
+
+#[derive(Debug, Deserialize)]
+struct MarginalRecord {
+    mean: f64,
+    q025: f64,
+    q975: f64,
+}
+
+#[derive(Debug, Deserialize)]
+struct DiagnosticsRecord {
+    rhat: f64,
+}
+
+#[derive(Debug, Deserialize)]
+struct HyperRecord {
+    prior: String,
+    #[serde(default)]
+    value: Option<f64>,
+    #[serde(default)]
+    posterior: Option<MarginalRecord>,
+    #[serde(default)]
+    diagnostics: Option<DiagnosticsRecord>,
+}
+
+#[derive(Debug, Deserialize)]
+struct DiscrepancyRecord {
+    kernel: String,
+    sd: HyperRecord,
+    #[serde(default)]
+    length_scale: Option<HyperRecord>,
+}
+
+#[derive(Debug, Deserialize)]
+struct McseRecord {
+    mean: f64,
+    median: f64,
+    q025: f64,
+    q975: f64,
+}
+
+#[derive(Debug, Deserialize)]
+struct PosteriorWithDiscrepancy {
+    #[serde(default)]
+    discrepancy: BTreeMap<String, BTreeMap<String, DiscrepancyRecord>>,
+    mcse: BTreeMap<String, McseRecord>,
+}
+
+#[derive(Debug, Deserialize)]
+struct IntervalRecord {
+    lo95: f64,
+    hi95: f64,
+}
+
+#[derive(Debug, Deserialize)]
+struct ExperimentChecks {
+    measurements: Vec<IntervalRecord>,
+}
+
+#[derive(Debug, Deserialize)]
+struct ChecksRecord {
+    experiments: Vec<ExperimentChecks>,
+}
+
+/// `calibration.discrepancy` end to end: the posterior record reports the sampled sd and
+/// length-scale (decoded with this test's own structs), the samples carry their columns,
+/// the terminal shows them, `assay check` widens every predictive interval by the
+/// discrepancy's variance compared with the same study without it, and `assay verify`
+/// accepts the chain.
+#[test]
+fn discrepancy_is_sampled_reported_and_widens_the_predictive_checks() {
+    let widths = |discrepancy: bool| -> (Vec<f64>, Env) {
+        let env = Env::new();
+        let mut text = env.minimal_study("ok");
+        if discrepancy {
+            text = edit(
+                &text,
+                "warmup: 100, draws: 100, seed: 3}",
+                "warmup: 1000, draws: 1000, seed: 3, discrepancy: {sd: {half_normal: {scale: 0.3}}}}",
+            );
+        } else {
+            text = edit(
+                &text,
+                "warmup: 100, draws: 100, seed: 3}",
+                "warmup: 1000, draws: 1000, seed: 3}",
+            );
+        }
+        let study = env.write_study_text(&text);
+        let out = env.assay(["all"]).arg(&study).output().unwrap();
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        let stdout = String::from_utf8_lossy(&out.stdout).to_string();
+        assert_eq!(stdout.contains("δ sd"), discrepancy, "{stdout}");
+        let c: ChecksRecord = serde_yaml::from_str(&env.read("runs/tsim/checks.yaml")).unwrap();
+        let w = c.experiments[0]
+            .measurements
+            .iter()
+            .map(|m| m.hi95 - m.lo95)
+            .collect();
+        (w, env)
+    };
+    let (plain, _) = widths(false);
+    let (wide, env) = widths(true);
+    assert_eq!(plain.len(), wide.len());
+    for (a, b) in plain.iter().zip(&wide) {
+        assert!(b > a, "interval width with discrepancy {b} vs without {a}");
+    }
+    let text = env.read("runs/tsim/posterior.yaml");
+    let p: PosteriorWithDiscrepancy =
+        serde_yaml::from_str(&text).unwrap_or_else(|e| panic!("{e}\n{text}"));
+    let d = &p.discrepancy["bench"]["y"];
+    assert_eq!(d.kernel, "squared-exponential");
+    assert_eq!(d.sd.prior, "half_normal(scale 0.3)");
+    assert!(d.sd.value.is_none());
+    let sd = d.sd.posterior.as_ref().expect("sampled");
+    assert!(sd.q025 > 0.0 && sd.q025 <= sd.mean && sd.mean <= sd.q975);
+    assert!(d.sd.diagnostics.as_ref().unwrap().rhat.is_finite());
+    let ell = d.length_scale.as_ref().expect("a curve has a length-scale");
+    assert!(ell.prior.starts_with("lognormal(mu "), "{}", ell.prior);
+    assert!(ell.posterior.as_ref().unwrap().mean > 0.0);
+    for m in p.mcse.values() {
+        assert!(
+            m.mean > 0.0 && m.median > 0.0 && m.q025 > 0.0 && m.q975 > 0.0,
+            "{m:?}"
+        );
+    }
+    let samples = env.read("runs/tsim/posterior-samples.csv");
+    assert_eq!(
+        samples.lines().next().unwrap(),
+        "chain,draw,A,B,discrepancy_sd.bench.y,discrepancy_length_scale.bench.y,log_posterior"
+    );
+    let study = env.path("study.yaml");
+    env.assay(["verify"]).arg(&study).assert().success();
+}

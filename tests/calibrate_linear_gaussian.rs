@@ -1,5 +1,6 @@
 //! Calibration of a three-parameter model with a curve output against the closed-form
-//! posterior of a linear-Gaussian system.
+//! posterior of a linear-Gaussian system: with independent noise, and with a fixed
+//! model-discrepancy term added to the noise covariance.
 //!
 //! Model: y(x) = θ₁ + θ₂ x + θ₃ x² observed at ten x values (two of them with a second
 //! replicate), known noise σ, independent normal priors θ ~ N(μ₀, Λ⁻¹) with Λ diagonal.
@@ -15,11 +16,14 @@
 //! closed form uses every measurement as its own row of A: the test checks that the two
 //! agree.
 
+use assay::calibrate::discrepancy::DiscrepancyBlock;
 use assay::calibrate::{
-    sample, summarize, Emulator, ExperimentLikelihood, LogPosterior, SamplerParams,
+    sample, summarize, Discrepancy, Emulator, ExperimentLikelihood, Hyper, LogPosterior,
+    PosteriorSummary, SamplerParams,
 };
 use assay::progress::Silent;
 use assay::study::{Parameter, Prior};
+use assay::surrogate::Kernel;
 use ndarray::{Array1, Array2};
 use ndarray_linalg::Inverse;
 use std::sync::atomic::AtomicBool;
@@ -72,35 +76,31 @@ fn field_data() -> Vec<Vec<f64>> {
     values
 }
 
-/// Exact posterior mean and covariance from Bishop's eqs. 2.116–2.117.
-fn exact(values: &[Vec<f64>]) -> (Array1<f64>, Array2<f64>) {
+/// Exact posterior mean and covariance from Bishop's eqs. 2.116–2.117 with the noise
+/// precision L = Σ⁻¹ of a known covariance Σ of every measurement: `cov(x_a, x_b, same)`
+/// for two measurements at stations x_a, x_b (`same`: one measurement).
+fn exact(values: &[Vec<f64>], cov: impl Fn(f64, f64, bool) -> f64) -> (Array1<f64>, Array2<f64>) {
     let rows: Vec<(f64, f64)> = XS
         .iter()
         .zip(values)
         .flat_map(|(x, ys)| ys.iter().map(move |y| (*x, *y)))
         .collect();
-    let mut a = Array2::<f64>::zeros((rows.len(), 3));
-    let mut y = Array1::<f64>::zeros(rows.len());
-    for (i, (x, v)) in rows.iter().enumerate() {
-        a[[i, 0]] = 1.0;
-        a[[i, 1]] = *x;
-        a[[i, 2]] = x * x;
-        y[i] = *v;
-    }
+    let n = rows.len();
+    let a = Array2::from_shape_fn((n, 3), |(i, c)| rows[i].0.powi(c as i32));
+    let y = Array1::from_iter(rows.iter().map(|r| r.1));
+    let l = Array2::from_shape_fn((n, n), |(i, k)| cov(rows[i].0, rows[k].0, i == k))
+        .inv()
+        .expect("positive definite");
     let lambda = Array2::from_diag(&Array1::from_iter(PRIOR_SD.iter().map(|s| 1.0 / (s * s))));
-    let l = 1.0 / (SIGMA * SIGMA);
-    let precision = &lambda + &(a.t().dot(&a) * l);
+    let precision = &lambda + &a.t().dot(&l).dot(&a);
     let cov = precision.inv().expect("positive definite");
-    let rhs = a.t().dot(&y) * l + lambda.dot(&Array1::from(PRIOR_MEAN.to_vec()));
+    let rhs = a.t().dot(&l).dot(&y) + lambda.dot(&Array1::from(PRIOR_MEAN.to_vec()));
     (cov.dot(&rhs), cov)
 }
 
-#[test]
-fn quadratic_curve_with_normal_priors_matches_the_linear_gaussian_posterior() {
-    let values = field_data();
-    let (m, cov) = exact(&values);
-    let names: Vec<String> = ["t1", "t2", "t3"].iter().map(|s| s.to_string()).collect();
-    let parameters: Vec<Parameter> = (0..3)
+/// The normal priors, on ranges of ±30 prior sds.
+fn parameters(names: &[String]) -> Vec<Parameter> {
+    (0..3)
         .map(|i| Parameter {
             name: names[i].clone(),
             unit: None,
@@ -111,14 +111,23 @@ fn quadratic_curve_with_normal_priors_matches_the_linear_gaussian_posterior() {
                 sd: PRIOR_SD[i],
             },
         })
-        .collect();
-    let sds: Vec<Vec<f64>> = values.iter().map(|v| vec![SIGMA; v.len()]).collect();
-    let lik = ExperimentLikelihood::from_values("curve", &values, &sds);
+        .collect()
+}
+
+/// Sample `lik` and compare each parameter's mean and sd with the exact (m, cov).
+fn assert_matches(
+    lik: ExperimentLikelihood,
+    names: &[String],
+    m: &Array1<f64>,
+    cov: &Array2<f64>,
+    seed: u64,
+) -> PosteriorSummary {
     let em = Quadratic;
-    let post = LogPosterior::new(parameters, vec![(&em as &dyn Emulator, lik)]);
-    let params = SamplerParams::metropolis(4, 4000, 20000, 101);
+    let post = LogPosterior::new(parameters(names), vec![(&em as &dyn Emulator, lik)]);
+    assert_eq!(post.dim(), 3, "only θ is sampled");
+    let params = SamplerParams::metropolis(4, 4000, 20000, seed);
     let chains = sample(&post, &params, &AtomicBool::new(false), &Silent);
-    let s = summarize(&names, &[], &chains);
+    let s = summarize(names, &[], &chains).with_discrepancy(&post, &chains);
     for j in 0..3 {
         let p = s.parameters[j];
         let exact_sd = cov[[j, j]].sqrt();
@@ -140,6 +149,17 @@ fn quadratic_curve_with_normal_priors_matches_the_linear_gaussian_posterior() {
         // Posterior variance ≤ prior variance in the conjugate case.
         assert!(p.sd < PRIOR_SD[j]);
     }
+    s
+}
+
+#[test]
+fn quadratic_curve_with_normal_priors_matches_the_linear_gaussian_posterior() {
+    let values = field_data();
+    let (m, cov) = exact(&values, |_, _, same| if same { SIGMA * SIGMA } else { 0.0 });
+    let names: Vec<String> = ["t1", "t2", "t3"].iter().map(|s| s.to_string()).collect();
+    let sds: Vec<Vec<f64>> = values.iter().map(|v| vec![SIGMA; v.len()]).collect();
+    let lik = ExperimentLikelihood::from_values("curve", &values, &sds);
+    let s = assert_matches(lik, &names, &m, &cov, 101);
     let exact_corr = cov[[0, 1]] / (cov[[0, 0]] * cov[[1, 1]]).sqrt();
     let got = s.correlation.matrix[0][1];
     assert!(
@@ -153,4 +173,42 @@ fn quadratic_curve_with_normal_priors_matches_the_linear_gaussian_posterior() {
             assert_eq!(s.correlation.matrix[j][k], s.correlation.matrix[k][j]);
         }
     }
+}
+
+/// Discrepancy hyperparameters of the next test (fixed; invented for the test).
+const DELTA_SD: f64 = 0.2;
+const DELTA_ELL: f64 = 0.3;
+
+/// The same curve with a fixed squared-exponential model discrepancy (Kennedy & O'Hagan
+/// 2001): the measurements' covariance is Σ = σ²I + K_δ, K_δ = s² exp(−(x − x′)²/(2ℓ²))
+/// (replicates at one x share δ), and the posterior is the linear-Gaussian one with that
+/// Σ (Bishop 2006, eqs. 2.116–2.117 with L = Σ⁻¹).
+#[test]
+fn fixed_discrepancy_matches_the_linear_gaussian_posterior_with_its_covariance() {
+    let values = field_data();
+    let (m, cov) = exact(&values, |xa, xb, same| {
+        DELTA_SD * DELTA_SD * (-0.5 * ((xa - xb) / DELTA_ELL).powi(2)).exp()
+            + if same { SIGMA * SIGMA } else { 0.0 }
+    });
+    let disc = Discrepancy {
+        kernel: Kernel::SquaredExponential,
+        blocks: vec![DiscrepancyBlock {
+            quantity: "y".into(),
+            index: (0..XS.len()).collect(),
+            x: Some(XS.to_vec()),
+            sd: Hyper::Fixed(DELTA_SD),
+            length_scale: Some(Hyper::Fixed(DELTA_ELL)),
+            at: None,
+        }],
+    };
+    let names: Vec<String> = ["t1", "t2", "t3"].iter().map(|s| s.to_string()).collect();
+    let sds: Vec<Vec<f64>> = values.iter().map(|v| vec![SIGMA; v.len()]).collect();
+    let lik = ExperimentLikelihood::from_values("curve", &values, &sds).with_discrepancy(disc);
+    let s = assert_matches(lik, &names, &m, &cov, 7);
+    // The record states the fixed values.
+    let (e, q, d) = &s.discrepancy[0];
+    assert_eq!((e.as_str(), q.as_str()), ("curve", "y"));
+    assert_eq!(d.sd.value, Some(DELTA_SD));
+    assert_eq!(d.length_scale.as_ref().unwrap().value, Some(DELTA_ELL));
+    assert!(d.sd.posterior.is_none());
 }

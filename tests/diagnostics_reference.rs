@@ -1,14 +1,19 @@
-//! R̂ and ESS against arviz (fixture `tests/reference/diagnostics.json`, made by
+//! R̂, ESS and the MCSE of quantiles against arviz (fixture `tests/reference/diagnostics.json`, made by
 //! `tests/reference/diagnostics_reference.py`; versions recorded in the fixture).
 //! Method: Vehtari, Gelman, Simpson, Carpenter & Bürkner (2021), Bayesian Analysis 16(2).
 
-use assay::calibrate::{ess_bulk, ess_tail, rhat};
+use assay::calibrate::{ess_bulk, ess_tail, mcse_quantile, rhat};
 use serde::Deserialize;
+use std::collections::BTreeMap;
 
 /// Same algorithm, same double-precision inputs: only summation order differs.
 /// The normal quantile (statrs vs scipy) agrees to ~1e-15 relative.
 const RHAT_RTOL: f64 = 1e-9;
 const ESS_RTOL: f64 = 1e-8;
+/// The quantile MCSE is half a difference of two order statistics picked through a beta
+/// quantile (statrs vs scipy): equal indices give equal values; the 1e-6 leaves
+/// room for nothing else, so a different index fails.
+const MCSE_QUANTILE_ATOL: f64 = 1e-6;
 
 #[derive(Deserialize)]
 struct Case {
@@ -17,6 +22,8 @@ struct Case {
     rhat: f64,
     ess_bulk: f64,
     ess_tail: f64,
+    /// By probability, as text ("0.025", "0.5", "0.975").
+    mcse_quantile: BTreeMap<String, f64>,
 }
 
 #[derive(Deserialize)]
@@ -24,14 +31,18 @@ struct Fixture {
     cases: Vec<Case>,
 }
 
-#[test]
-fn rhat_and_ess_match_arviz() {
+fn fixture() -> Fixture {
     let text = std::fs::read_to_string(concat!(
         env!("CARGO_MANIFEST_DIR"),
         "/tests/reference/diagnostics.json"
     ))
     .unwrap();
-    let f: Fixture = serde_json::from_str(&text).unwrap();
+    serde_json::from_str(&text).unwrap()
+}
+
+#[test]
+fn rhat_and_ess_match_arviz() {
+    let f = fixture();
     assert_eq!(f.cases.len(), 5);
     for c in &f.cases {
         let r = rhat(&c.chains);
@@ -55,5 +66,21 @@ fn rhat_and_ess_match_arviz() {
             c.name,
             c.ess_tail
         );
+    }
+}
+
+#[test]
+fn quantile_mcse_matches_arviz() {
+    let f = fixture();
+    for c in &f.cases {
+        assert_eq!(c.mcse_quantile.len(), 3, "{}", c.name);
+        for (p, want) in &c.mcse_quantile {
+            let got = mcse_quantile(&c.chains, p.parse().unwrap());
+            assert!(
+                (got - want).abs() < MCSE_QUANTILE_ATOL,
+                "{}: mcse of the {p} quantile {got} vs arviz {want}",
+                c.name
+            );
+        }
     }
 }

@@ -116,6 +116,13 @@ fn cases(text: &str) -> Vec<(&'static str, String, bool)> {
         ("slurm prelude as a list", format!("{text}execution: {{slurm: {{prelude: [module load x, export Y=1]}}}}\n"), true),
         ("unknown slurm key", format!("{text}execution: {{slurm: {{nodes: 2}}}}\n"), false),
         ("unknown backend", format!("{text}execution: {{backend: pbs}}\n"), false),
+        ("discrepancy with defaults", edit(text, "seed: 3}", "seed: 3, discrepancy: {}}"), true),
+        ("discrepancy in every form", edit(text, "seed: 3}", "seed: 3, discrepancy: {kernel: matern52, sd: {half_normal: {scale: 0.1}}, length_scale: {lognormal: {mu: -1, sigma: 1}}, experiments: [bench]}}"), true),
+        ("discrepancy fixed", edit(text, "seed: 3}", "seed: 3, discrepancy: {sd: {fixed: 0.1}, length_scale: {fixed: 0.5}}}"), true),
+        ("unknown key in discrepancy", edit(text, "seed: 3}", "seed: 3, discrepancy: {variance: 0.1}}"), false),
+        ("unknown discrepancy sd form", edit(text, "seed: 3}", "seed: 3, discrepancy: {sd: {normal: {mean: 0, sd: 1}}}}"), false),
+        ("discrepancy sd with two forms", edit(text, "seed: 3}", "seed: 3, discrepancy: {sd: {fixed: 0.1, half_normal: {scale: 1}}}}"), false),
+        ("unknown discrepancy kernel", edit(text, "seed: 3}", "seed: 3, discrepancy: {kernel: rbf}}"), false),
     ]
 }
 

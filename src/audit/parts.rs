@@ -132,22 +132,29 @@ pub fn posterior_parts(study: &Study) -> BTreeMap<String, String> {
         })
         .collect();
     let c = &study.calibration;
+    let mut calibration = json!({
+        "chains": c.chains,
+        "warmup": c.warmup,
+        "draws": c.draws,
+        "seed": c.seed,
+        "sampler": format!("{:?}", c.sampler),
+        "walkers": c.walkers,
+        "until_converged": c.until_converged,
+        "prior_from": c.prior_from.as_ref().map(|p| p.display().to_string()),
+    });
+    // Only when present, so records made before the key existed stay fresh.
+    if let Some(d) = &c.discrepancy {
+        calibration["discrepancy"] = json!({
+            "kernel": format!("{:?}", d.kernel),
+            "sd": format!("{:?}", d.sd),
+            "length_scale": format!("{:?}", d.length_scale),
+            "experiments": d.experiments,
+        });
+    }
     BTreeMap::from([
         ("parameters".into(), sha(&parameters_json(study, true))),
         ("experiments".into(), sha(&Value::Array(experiments))),
-        (
-            "calibration".into(),
-            sha(&json!({
-                "chains": c.chains,
-                "warmup": c.warmup,
-                "draws": c.draws,
-                "seed": c.seed,
-                "sampler": format!("{:?}", c.sampler),
-                "walkers": c.walkers,
-                "until_converged": c.until_converged,
-                "prior_from": c.prior_from.as_ref().map(|p| p.display().to_string()),
-            })),
-        ),
+        ("calibration".into(), sha(&calibration)),
     ])
 }
 

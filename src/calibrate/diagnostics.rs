@@ -221,6 +221,71 @@ pub fn ess_tail(chains: &[Vec<f64>]) -> f64 {
     ess_raw(&ind(q05)).min(ess_raw(&ind(q95)))
 }
 
+/// ESS of the p-quantile: the ESS of the indicator I(θ ≤ q_p) over the split chains,
+/// q_p the type-7 quantile of all draws (Vehtari et al. 2021, §4.3).
+pub fn ess_quantile(chains: &[Vec<f64>], p: f64) -> f64 {
+    let sp = split(chains);
+    if sp.is_empty() {
+        return f64::NAN;
+    }
+    let mut all: Vec<f64> = chains.iter().flatten().copied().collect();
+    all.sort_by(f64::total_cmp);
+    let q = quantile_sorted(&all, p);
+    let ind: Vec<Vec<f64>> = sp
+        .iter()
+        .map(|c| c.iter().map(|v| if *v <= q { 1.0 } else { 0.0 }).collect())
+        .collect();
+    // A constant indicator carries no autocorrelation: every draw counts (as arviz).
+    if ind.iter().flatten().all(|v| *v == ind[0][0]) {
+        return all.len() as f64;
+    }
+    ess_raw(&ind)
+}
+
+/// Monte Carlo standard error of the p-quantile of the pooled draws.
+///
+/// # Formula
+/// With S the number of draws, θ₍₁₎ ≤ … ≤ θ₍S₎ the sorted draws and N = [`ess_quantile`]:
+/// the quantile's rank is, approximately, S times a Beta(N p + 1, N (1 − p) + 1) variable;
+/// with a, b that Beta's 15.87 % and 84.13 % quantiles (±1 sd of a normal),
+/// i₁ = ⌊max(a S − 1, 0)⌋, i₂ = ⌈min(b S − 1, S − 1)⌉ (0-based),
+/// MCSE = (θ₍i₂₎ − θ₍i₁₎) / 2. Zero when every draw is the same; NaN with fewer than
+/// four draws per split chain.
+///
+/// # References
+/// Vehtari, Gelman, Simpson, Carpenter & Bürkner (2021), Bayesian Analysis 16(2),
+/// 667–718, §4.3 (MCSE of quantiles by inverting the interval of the indicator's
+/// mean); the index convention is arviz 0.23's `mcse(method="quantile")`, against whose
+/// output `tests/diagnostics_reference.rs` checks it.
+///
+/// # Example
+/// ```
+/// use assay::calibrate::mcse_quantile;
+/// // Identical draws: no Monte Carlo error.
+/// assert_eq!(mcse_quantile(&[vec![2.0; 20], vec![2.0; 20]], 0.5), 0.0);
+/// ```
+pub fn mcse_quantile(chains: &[Vec<f64>], p: f64) -> f64 {
+    use statrs::distribution::Beta;
+    let mut all: Vec<f64> = chains.iter().flatten().copied().collect();
+    all.sort_by(f64::total_cmp);
+    let (Some(first), Some(last)) = (all.first(), all.last()) else {
+        return f64::NAN;
+    };
+    if first == last {
+        return 0.0;
+    }
+    let n_eff = ess_quantile(chains, p);
+    let Ok(beta) = Beta::new(n_eff * p + 1.0, n_eff * (1.0 - p) + 1.0) else {
+        return f64::NAN;
+    };
+    // Φ(−1) and Φ(1) to the precision arviz writes them.
+    let (lo, hi) = (beta.inverse_cdf(0.158_655_3), beta.inverse_cdf(0.841_344_7));
+    let s = all.len() as f64;
+    let i1 = (lo * s - 1.0).max(0.0).floor() as usize;
+    let i2 = (hi * s - 1.0).min(s - 1.0).ceil() as usize;
+    (all[i2] - all[i1]) / 2.0
+}
+
 /// Quantile of sorted values by linear interpolation (type 7, as numpy's default).
 pub fn quantile_sorted(sorted: &[f64], p: f64) -> f64 {
     let n = sorted.len();

@@ -49,7 +49,6 @@ struct Walker {
 /// One half-step: walkers `mine` move against the fixed positions `other`.
 fn move_half(post: &LogPosterior<'_>, mine: &mut [Walker], other: &[Vec<f64>], keep: bool) {
     let d = post.dim();
-    let n_par = post.n_parameters();
     mine.par_iter_mut().for_each(|w| {
         let j = w.rng.gen_range(0..other.len());
         let s = stretch_factor(&mut w.rng, STRETCH);
@@ -70,10 +69,7 @@ fn move_half(post: &LogPosterior<'_>, mine: &mut [Walker], other: &[Vec<f64>], k
             if accept {
                 w.accepted += 1;
             }
-            let mut x = post.to_constrained(&w.z);
-            w.chain.ln_posterior.push(w.lp - post.ln_jacobian(&w.z));
-            w.chain.noise_var.push(x.split_off(n_par));
-            w.chain.theta.push(x);
+            w.chain.keep(post, &w.z, w.lp);
         }
     });
 }
@@ -101,14 +97,8 @@ pub fn sample(
                 lp,
                 accepted: 0,
                 chain: Chain {
-                    index: k,
-                    theta: Vec::new(),
-                    noise_var: Vec::new(),
-                    ln_posterior: Vec::new(),
-                    acceptance_rate: 0.0,
                     step_scale: STRETCH,
-                    termination: Termination::MaxDraws,
-                    restarted_from: None,
+                    ..Chain::new(k)
                 },
             }
         })

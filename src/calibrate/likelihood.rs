@@ -38,11 +38,13 @@
 //! O'Hagan, A. (2001), Bayesian calibration of computer models, JRSS B 63(3), 425–464
 //! (emulator variance in the likelihood).
 
+use super::discrepancy::Discrepancy;
 use super::prior::InverseGamma;
 use crate::study::{Experiment, Noise, Target};
 use crate::surrogate::LowRankPrediction;
 use ndarray::{Array1, Array2, ArrayView2};
-use ndarray_linalg::{FactorizeC, SolveC, UPLO};
+use ndarray_linalg::{Cholesky, Diag, FactorizeC, SolveC, SolveTriangular, UPLO};
+use std::sync::OnceLock;
 
 /// Anything that predicts an experiment's output vector at parameter values θ.
 pub trait Emulator: Sync {
@@ -112,8 +114,7 @@ pub fn ln_normal_low_rank(r: &[f64], lambda: &[f64], basis: ArrayView2<f64>, v: 
         quad += rj * rj / lj;
     }
     if k > 0 {
-        let sv: Vec<f64> = v.iter().map(|x| x.max(0.0).sqrt()).collect();
-        let g = Array2::from_shape_fn((p, k), |(j, c)| basis[[j, c]] * sv[c]);
+        let g = scaled_basis(basis, v);
         let mut m = Array2::<f64>::eye(k);
         let mut c = Array1::<f64>::zeros(k);
         for j in 0..p {
@@ -131,15 +132,89 @@ pub fn ln_normal_low_rank(r: &[f64], lambda: &[f64], basis: ArrayView2<f64>, v: 
                 m[[b, a]] = m[[a, b]];
             }
         }
-        let Ok(f) = m.factorizec(UPLO::Lower) else {
+        let Some((ln_det_m, correction)) = woodbury_terms(m, &c) else {
             return f64::NEG_INFINITY;
         };
-        let Ok(sol) = f.solvec(&c) else {
+        quad -= correction;
+        ln_det += ln_det_m;
+    }
+    -0.5 * (p as f64 * LN_2PI + ln_det + quad)
+}
+
+/// G = B diag(√v) (negative variances, rounding noise, read as 0).
+fn scaled_basis(basis: ArrayView2<f64>, v: &[f64]) -> Array2<f64> {
+    let sv: Vec<f64> = v.iter().map(|x| x.max(0.0).sqrt()).collect();
+    Array2::from_shape_fn(basis.dim(), |(j, c)| basis[[j, c]] * sv[c])
+}
+
+/// (ln |M|, cᵀ M⁻¹ c) by a Cholesky factorisation of the K × K matrix M (LAPACK);
+/// `None` when M is not positive definite.
+fn woodbury_terms(m: Array2<f64>, c: &Array1<f64>) -> Option<(f64, f64)> {
+    let k = c.len();
+    let f = m.factorizec(UPLO::Lower).ok()?;
+    let sol = f.solvec(c).ok()?;
+    let l = &f.factor;
+    Some((
+        2.0 * (0..k).map(|i| l[[i, i]].ln()).sum::<f64>(),
+        c.dot(&sol),
+    ))
+}
+
+/// ln N(r; 0, D + B diag(v) Bᵀ) with a dense base matrix D, given its lower Cholesky
+/// factor L (D = L Lᵀ): the Woodbury identity and the matrix determinant lemma with D in
+/// place of a diagonal.
+///
+/// # Formula
+/// With G = B diag(√v), A = L⁻¹ G, b = L⁻¹ r, M = I + AᵀA and c = Aᵀ b:
+/// −½ (p ln 2π + 2 Σ ln L_ii + ln |M| + bᵀb − cᵀ M⁻¹ c).
+/// The two triangular solves cost O(p² K); the K × K factorisation of M is the only
+/// other one, so a caller who keeps L for fixed D pays no p × p factorisation.
+///
+/// # Panics
+/// If the shapes disagree (r of length p; L p × p; B p × K; v of length K).
+///
+/// # Example
+/// ```
+/// use assay::calibrate::ln_normal_factored_low_rank;
+/// use ndarray::array;
+/// // D = [[4, 2], [2, 2]] = L Lᵀ with L = [[2, 0], [1, 1]]; no low-rank part:
+/// // |D| = 4, D⁻¹ = [[0.5, −0.5], [−0.5, 1]], rᵀD⁻¹r = 0.5 for r = (1, 0).
+/// let l = array![[2.0, 0.0], [1.0, 1.0]];
+/// let got = ln_normal_factored_low_rank(&[1.0, 0.0], &l, ndarray::Array2::zeros((2, 0)).view(), &[]);
+/// let want = -0.5 * (2.0 * (2.0 * std::f64::consts::PI).ln() + 4f64.ln() + 0.5);
+/// assert!((got - want).abs() < 1e-14);
+/// ```
+///
+/// # References
+/// Rasmussen & Williams (2006), §A.3, eqs. A.9–A.10; Harville (1997), §18.2 *(section
+/// from memory)*.
+pub fn ln_normal_factored_low_rank(
+    r: &[f64],
+    chol: &Array2<f64>,
+    basis: ArrayView2<f64>,
+    v: &[f64],
+) -> f64 {
+    let p = r.len();
+    let k = v.len();
+    assert_eq!(chol.dim(), (p, p));
+    assert_eq!(basis.dim(), (p, k));
+    let Ok(b) = chol.solve_triangular(UPLO::Lower, Diag::NonUnit, &Array1::from(r.to_vec())) else {
+        return f64::NEG_INFINITY;
+    };
+    let mut ln_det = 2.0 * (0..p).map(|i| chol[[i, i]].ln()).sum::<f64>();
+    let mut quad = b.dot(&b);
+    if k > 0 {
+        let Ok(a) = chol.solve_triangular(UPLO::Lower, Diag::NonUnit, &scaled_basis(basis, v))
+        else {
             return f64::NEG_INFINITY;
         };
-        quad -= c.dot(&sol);
-        let l = &f.factor;
-        ln_det += 2.0 * (0..k).map(|i| l[[i, i]].ln()).sum::<f64>();
+        let m = Array2::<f64>::eye(k) + a.t().dot(&a);
+        let c = a.t().dot(&b);
+        let Some((ln_det_m, correction)) = woodbury_terms(m, &c) else {
+            return f64::NEG_INFINITY;
+        };
+        quad -= correction;
+        ln_det += ln_det_m;
     }
     -0.5 * (p as f64 * LN_2PI + ln_det + quad)
 }
@@ -178,6 +253,12 @@ pub struct ExperimentLikelihood {
     pub name: String,
     groups: Vec<Group>,
     noise: NoiseModel,
+    discrepancy: Option<Discrepancy>,
+    /// With a discrepancy whose hyperparameters are all fixed: the diagonal λ of the
+    /// first evaluation and the Cholesky factor of diag(λ) + K_δ, reused while λ stays
+    /// the same (known noise and a surrogate whose discarded variance does not depend
+    /// on θ: every evaluation).
+    base_factor: OnceLock<(Vec<f64>, Array2<f64>)>,
 }
 
 impl ExperimentLikelihood {
@@ -209,6 +290,8 @@ impl ExperimentLikelihood {
             name: e.name.clone(),
             groups,
             noise: NoiseModel::Known,
+            discrepancy: None,
+            base_factor: OnceLock::new(),
         }
     }
 
@@ -222,6 +305,8 @@ impl ExperimentLikelihood {
                 .map(|(v, s)| Self::group(v, s))
                 .collect(),
             noise: NoiseModel::Known,
+            discrepancy: None,
+            base_factor: OnceLock::new(),
         }
     }
 
@@ -259,7 +344,33 @@ impl ExperimentLikelihood {
                 ss,
                 n_values,
             },
+            discrepancy: None,
+            base_factor: OnceLock::new(),
         }
+    }
+
+    /// Add a model-discrepancy term: Σ = Σ_surrogate + Σ_noise + Σ_δ.
+    ///
+    /// # Panics
+    /// If a block of `d` points past the experiment's output values.
+    pub fn with_discrepancy(mut self, d: Discrepancy) -> Self {
+        assert!(d
+            .blocks
+            .iter()
+            .all(|b| b.index.iter().all(|&j| j < self.groups.len())));
+        self.discrepancy = Some(d);
+        self.base_factor = OnceLock::new();
+        self
+    }
+
+    /// The discrepancy term, if any.
+    pub fn discrepancy(&self) -> Option<&Discrepancy> {
+        self.discrepancy.as_ref()
+    }
+
+    /// Number of sampled discrepancy hyperparameters.
+    pub fn n_discrepancy(&self) -> usize {
+        self.discrepancy.as_ref().map_or(0, Discrepancy::n_sampled)
     }
 
     /// The prior of the noise variance when it is unknown (and sampled).
@@ -343,20 +454,62 @@ impl ExperimentLikelihood {
     /// with known noise).
     pub fn ln_likelihood_with_noise(&self, mean: &[f64], var: &[f64], noise_var: f64) -> f64 {
         let p = mean.len();
-        self.ln_likelihood_parts(mean, Array2::zeros((p, 0)).view(), &[], var, noise_var)
+        self.ln_likelihood_parts(mean, Array2::zeros((p, 0)).view(), &[], var, noise_var, &[])
     }
 
     /// ln L given the emulator's low-rank-plus-diagonal prediction of the output vector
     /// and, when the noise is unknown, its variance `noise_var` (ignored with known
     /// noise). See the module documentation for the formula.
     pub fn ln_likelihood_low_rank(&self, pred: &LowRankPrediction, noise_var: f64) -> f64 {
+        self.ln_likelihood_full(pred, noise_var, &[])
+    }
+
+    /// As [`Self::ln_likelihood_low_rank`], with the sampled discrepancy
+    /// hyperparameters `discrepancy` (sd and length-scale per quantity, in
+    /// [`Discrepancy::hypers`] order, fixed ones left out; empty without a discrepancy).
+    ///
+    /// # Formula
+    /// ln N(ȳ; μ, B diag(v) Bᵀ + Λ + K_δ) + Σ_j C_j: the base D = Λ + K_δ is dense, so it
+    /// is factored (Cholesky, LAPACK) and the low-rank surrogate part enters by
+    /// [`ln_normal_factored_low_rank`]; with fixed hyperparameters and an unchanged Λ the
+    /// factor of the first evaluation is reused.
+    pub fn ln_likelihood_full(
+        &self,
+        pred: &LowRankPrediction,
+        noise_var: f64,
+        discrepancy: &[f64],
+    ) -> f64 {
         self.ln_likelihood_parts(
             &pred.mean,
             pred.basis.view(),
             &pred.weight_var,
             &pred.diag,
             noise_var,
+            discrepancy,
         )
+    }
+
+    /// The lower Cholesky factor of diag(λ) + K_δ(hyper).
+    fn base_factor(&self, d: &Discrepancy, lambda: &[f64], hyper: &[f64]) -> Option<Array2<f64>> {
+        let factor = || {
+            let mut base = Array2::from_diag(&Array1::from(lambda.to_vec()));
+            d.add_covariance(hyper, &mut base);
+            base.cholesky(UPLO::Lower).ok()
+        };
+        if d.n_sampled() > 0 {
+            return factor();
+        }
+        if let Some((key, l)) = self.base_factor.get() {
+            if key.as_slice() == lambda {
+                return Some(l.clone());
+            }
+            return factor();
+        }
+        let l = factor()?;
+        // Another thread may have set it first with the same λ (same factor) or
+        // another one (the key tells them apart).
+        let _ = self.base_factor.set((lambda.to_vec(), l.clone()));
+        Some(l)
     }
 
     fn ln_likelihood_parts(
@@ -366,6 +519,7 @@ impl ExperimentLikelihood {
         weight_var: &[f64],
         diag: &[f64],
         noise_var: f64,
+        discrepancy: &[f64],
     ) -> f64 {
         debug_assert_eq!(mean.len(), self.groups.len());
         let (scale, mut s) = match self.noise {
@@ -385,7 +539,18 @@ impl ExperimentLikelihood {
             lambda.push(d + scale * g.var_mean);
             s += g.constant;
         }
-        s + ln_normal_low_rank(&r, &lambda, basis, weight_var)
+        let Some(d) = &self.discrepancy else {
+            return s + ln_normal_low_rank(&r, &lambda, basis, weight_var);
+        };
+        if lambda.iter().any(|l| !(*l >= 0.0 && l.is_finite()))
+            || discrepancy.iter().any(|h| !(*h > 0.0 && h.is_finite()))
+        {
+            return f64::NEG_INFINITY;
+        }
+        match self.base_factor(d, &lambda, discrepancy) {
+            Some(l) => s + ln_normal_factored_low_rank(&r, &l, basis, weight_var),
+            None => f64::NEG_INFINITY,
+        }
     }
 }
 

@@ -2,11 +2,13 @@
 //!
 //! Input: the study's parameters (priors, ranges), each experiment's field data and
 //! noise, and an [`Emulator`] per experiment (the fitted surrogate, or an exact model in
-//! tests). Output: MCMC [`Chain`]s of the parameters and of any unknown noise variance,
+//! tests). Output: MCMC [`Chain`]s of the parameters, of any unknown noise variance and
+//! of any sampled discrepancy hyperparameters,
 //! their [`Diagnostics`] and a [`PosteriorSummary`].
 //! Must not: open files, print, or create its own RNG (streams come from one seed).
 
 mod diagnostics;
+pub mod discrepancy;
 pub mod ensemble;
 mod likelihood;
 mod posterior;
@@ -14,12 +16,17 @@ mod prior;
 mod sampler;
 mod summary;
 
-pub use diagnostics::{ess_bulk, ess_tail, quantile_sorted, rhat, Diagnostics};
-pub use likelihood::{ln_normal_low_rank, Emulator, ExperimentLikelihood};
+pub use diagnostics::{
+    ess_bulk, ess_quantile, ess_tail, mcse_quantile, quantile_sorted, rhat, Diagnostics,
+};
+pub use discrepancy::{Discrepancy, Hyper, HyperKind};
+pub use likelihood::{
+    ln_normal_factored_low_rank, ln_normal_low_rank, Emulator, ExperimentLikelihood,
+};
 pub use posterior::LogPosterior;
 pub use prior::{ln_prior, InverseGamma, MvnPrior, Transform};
 pub use sampler::{converged, sample, Chain, Restart, SamplerParams, Termination};
 pub use summary::{
-    summarize, Correlation, Marginal, Mcse, NoiseMcse, NoiseSummary, ParameterSummary,
-    PosteriorBody, PosteriorSummary, CAUTION, ESS_WARN, RHAT_WARN,
+    summarize, Correlation, DiscrepancySummary, HyperSummary, Marginal, Mcse, NoiseMcse,
+    NoiseSummary, ParameterSummary, PosteriorBody, PosteriorSummary, CAUTION, ESS_WARN, RHAT_WARN,
 };

@@ -1,9 +1,10 @@
 //! The log posterior on the unconstrained space: priors, Jacobians and the likelihoods
 //! of every experiment.
 //!
-//! The state is x = (θ₁ … θ_d, σ₁² … σ_k²): the study's parameters, then the noise
-//! variance of each experiment whose noise is unknown, in the study's experiment order.
-//! The sampler works on z = (logit θ, ln σ²).
+//! The state is x = (θ₁ … θ_d, σ₁² … σ_k², h₁ … h_m): the study's parameters, then the
+//! noise variance of each experiment whose noise is unknown, then the sampled
+//! model-discrepancy hyperparameters (sd, length-scale) of each experiment, both in the
+//! study's experiment order. The sampler works on z = (logit θ, ln σ², ln h).
 
 use super::likelihood::{Emulator, ExperimentLikelihood};
 use super::prior::{ln_prior, InverseGamma, MvnPrior, Transform};
@@ -18,6 +19,9 @@ pub struct LogPosterior<'a> {
     /// For each experiment, the index of its noise variance in the state (after the
     /// parameters), when its noise is unknown.
     noise_slot: Vec<Option<usize>>,
+    /// For each experiment, the range of its sampled discrepancy hyperparameters in the
+    /// state (after the parameters and noise variances).
+    discrepancy_slot: Vec<std::ops::Range<usize>>,
     /// Evaluations of this density (all chains).
     pub n_evaluations: AtomicU64,
     /// A joint prior on z = logit θ that replaces the per-parameter priors
@@ -47,11 +51,21 @@ impl<'a> LogPosterior<'a> {
                 })
             })
             .collect();
+        let mut start = 0;
+        let discrepancy_slot = experiments
+            .iter()
+            .map(|(_, lik)| {
+                let r = start..start + lik.n_discrepancy();
+                start = r.end;
+                r
+            })
+            .collect();
         Self {
             parameters,
             transforms,
             experiments,
             noise_slot,
+            discrepancy_slot,
             n_evaluations: AtomicU64::new(0),
             mvn_prior: None,
             start_candidates: Vec::new(),
@@ -84,9 +98,29 @@ impl<'a> LogPosterior<'a> {
         self
     }
 
-    /// Length of the sampled state: parameters plus estimated noise variances.
+    /// Length of the sampled state: parameters, estimated noise variances and sampled
+    /// discrepancy hyperparameters.
     pub fn dim(&self) -> usize {
-        self.n_parameters() + self.n_noise()
+        self.n_parameters() + self.n_noise() + self.n_discrepancy()
+    }
+
+    /// Number of sampled discrepancy hyperparameters.
+    pub fn n_discrepancy(&self) -> usize {
+        self.discrepancy_slot.last().map_or(0, |r| r.end)
+    }
+
+    /// The sampled discrepancy hyperparameters of experiment `k` within
+    /// `discrepancy` (the state's last [`Self::n_discrepancy`] values).
+    pub fn discrepancy_of<'v>(&self, k: usize, discrepancy: &'v [f64]) -> &'v [f64] {
+        &discrepancy[self.discrepancy_slot[k].clone()]
+    }
+
+    /// Split a constrained state x into (θ, noise variances, discrepancy
+    /// hyperparameters).
+    pub fn split_state(&self, mut x: Vec<f64>) -> (Vec<f64>, Vec<f64>, Vec<f64>) {
+        let disc = x.split_off(self.n_parameters() + self.n_noise());
+        let noise = x.split_off(self.n_parameters());
+        (x, noise, disc)
     }
 
     pub fn n_parameters(&self) -> usize {
@@ -116,7 +150,8 @@ impl<'a> LogPosterior<'a> {
             .collect()
     }
 
-    /// z → x: logit⁻¹ for the parameters, exp for the noise variances.
+    /// z → x: logit⁻¹ for the parameters, exp for the noise variances and discrepancy
+    /// hyperparameters.
     pub fn to_constrained(&self, z: &[f64]) -> Vec<f64> {
         let d = self.n_parameters();
         z[..d]
@@ -141,7 +176,8 @@ impl<'a> LogPosterior<'a> {
     /// ln |dx/dz|.
     ///
     /// # Formula
-    /// Σ_i ln |dθ_i/dz_i| (logit map, see [`Transform`]) + Σ_k z_k (σ_k² = e^{z_k}).
+    /// Σ_i ln |dθ_i/dz_i| (logit map, see [`Transform`]) + Σ_k z_k (σ_k² = e^{z_k}, and
+    /// each discrepancy hyperparameter h = e^z).
     pub fn ln_jacobian(&self, z: &[f64]) -> f64 {
         let d = self.n_parameters();
         z[..d]
@@ -157,7 +193,8 @@ impl<'a> LogPosterior<'a> {
     pub fn ln_posterior(&self, x: &[f64]) -> f64 {
         let d = self.n_parameters();
         debug_assert_eq!(x.len(), self.dim());
-        let (theta, noise_var) = x.split_at(d);
+        let (theta, rest) = x.split_at(d);
+        let (noise_var, disc) = rest.split_at(self.n_noise());
         let mut lp: f64 = match &self.mvn_prior {
             None => self
                 .parameters
@@ -187,28 +224,36 @@ impl<'a> LogPosterior<'a> {
                 mvn.ln_density(&z) - ln_jac
             }
         };
-        for ((_, lik), slot) in self.experiments.iter().zip(&self.noise_slot) {
-            if let (Some(k), Some(prior)) = (slot, lik.noise_prior()) {
-                lp += prior.ln_density(noise_var[*k]);
+        for (k, ((_, lik), slot)) in self.experiments.iter().zip(&self.noise_slot).enumerate() {
+            if let (Some(j), Some(prior)) = (slot, lik.noise_prior()) {
+                lp += prior.ln_density(noise_var[*j]);
+            }
+            if let Some(dk) = lik.discrepancy() {
+                lp += dk.ln_prior(self.discrepancy_of(k, disc));
             }
         }
         if !lp.is_finite() {
             return lp;
         }
-        for ((em, lik), slot) in self.experiments.iter().zip(&self.noise_slot) {
+        for (k, ((em, lik), slot)) in self.experiments.iter().zip(&self.noise_slot).enumerate() {
             let pred = em.predict_low_rank(theta);
-            let s2 = slot.map_or(1.0, |k| noise_var[k]);
-            lp += lik.ln_likelihood_low_rank(&pred, s2);
+            let s2 = slot.map_or(1.0, |j| noise_var[j]);
+            lp += lik.ln_likelihood_full(&pred, s2, self.discrepancy_of(k, disc));
         }
         lp
     }
 
-    /// ln p(θ | y) in θ-space for a posterior without estimated noise.
+    /// ln p(θ | y) in θ-space for a posterior without estimated noise or sampled
+    /// discrepancy hyperparameters.
     ///
     /// # Panics
-    /// If some noise variance is estimated (use [`Self::ln_posterior`]).
+    /// If the state holds more than θ (use [`Self::ln_posterior`]).
     pub fn ln_posterior_theta(&self, theta: &[f64]) -> f64 {
-        assert_eq!(self.n_noise(), 0, "the state includes noise variances");
+        assert_eq!(
+            self.dim(),
+            self.n_parameters(),
+            "the state holds more than θ"
+        );
         self.ln_posterior(theta)
     }
 
@@ -244,6 +289,32 @@ impl<'a> LogPosterior<'a> {
             } else {
                 c.scale / c.shape
             });
+        }
+        out
+    }
+
+    /// A starting value of every sampled discrepancy hyperparameter: a draw from its
+    /// prior, in state order (nothing is drawn without them).
+    pub fn initial_discrepancy<R: rand::Rng + ?Sized>(&self, rng: &mut R) -> Vec<f64> {
+        self.experiments
+            .iter()
+            .filter_map(|(_, lik)| lik.discrepancy())
+            .flat_map(|d| d.draw(rng))
+            .collect()
+    }
+
+    /// For each sampled discrepancy hyperparameter, in state order: (experiment, quantity,
+    /// kind, prior).
+    pub fn discrepancy_labels(&self) -> Vec<(String, String, super::HyperKind, super::Hyper)> {
+        let mut out = Vec::new();
+        for (_, lik) in &self.experiments {
+            if let Some(d) = lik.discrepancy() {
+                for (b, kind, h) in d.hypers() {
+                    if h.is_sampled() {
+                        out.push((lik.name.clone(), d.blocks[b].quantity.clone(), kind, h));
+                    }
+                }
+            }
         }
         out
     }

@@ -81,6 +81,9 @@ pub struct Chain {
     /// Estimated noise variances σ² of each draw, in [`LogPosterior::noise_names`]
     /// order (empty rows when no noise is estimated).
     pub noise_var: Vec<Vec<f64>>,
+    /// Sampled discrepancy hyperparameters of each draw, in
+    /// [`LogPosterior::discrepancy_labels`] order (empty rows without them).
+    pub discrepancy: Vec<Vec<f64>>,
     /// ln p(θ, σ² | y) + const of each draw (constrained scale, no Jacobian).
     pub ln_posterior: Vec<f64>,
     /// Fraction of accepted proposals after warm-up.
@@ -100,6 +103,32 @@ pub struct Restart {
     pub from: usize,
     /// How far its log density lay below that chain's.
     pub gap: f64,
+}
+
+impl Chain {
+    /// An empty chain.
+    pub(crate) fn new(index: usize) -> Self {
+        Self {
+            index,
+            theta: Vec::new(),
+            noise_var: Vec::new(),
+            discrepancy: Vec::new(),
+            ln_posterior: Vec::new(),
+            acceptance_rate: 0.0,
+            step_scale: 0.0,
+            termination: Termination::MaxDraws,
+            restarted_from: None,
+        }
+    }
+
+    /// Keep the draw at unconstrained `z` whose target density is `lp`.
+    pub(crate) fn keep(&mut self, post: &LogPosterior<'_>, z: &[f64], lp: f64) {
+        let (theta, noise, disc) = post.split_state(post.to_constrained(z));
+        self.ln_posterior.push(lp - post.ln_jacobian(z));
+        self.theta.push(theta);
+        self.noise_var.push(noise);
+        self.discrepancy.push(disc);
+    }
 }
 
 /// Target acceptance rate of the scale adaptation.
@@ -169,6 +198,10 @@ pub(crate) fn initial_point<R: Rng + ?Sized>(
         if post.n_noise() > 0 {
             let noise = post.initial_noise(&x, rng);
             x.extend(noise);
+        }
+        if post.n_discrepancy() > 0 {
+            let disc = post.initial_discrepancy(rng);
+            x.extend(disc);
         }
         let lp = post.ln_density(&post.to_unconstrained(&x));
         if best.as_ref().is_none_or(|(_, b)| lp > *b) {
@@ -276,16 +309,7 @@ impl AmChain {
             next_window_end: FIRST_WINDOW,
             t: 0,
             accepted: 0,
-            chain: Chain {
-                index,
-                theta: Vec::new(),
-                noise_var: Vec::new(),
-                ln_posterior: Vec::new(),
-                acceptance_rate: 0.0,
-                step_scale: 0.0,
-                termination: Termination::MaxDraws,
-                restarted_from: None,
-            },
+            chain: Chain::new(index),
         }
     }
 
@@ -299,7 +323,6 @@ impl AmChain {
         observer: &dyn Observer,
     ) {
         let d = post.dim();
-        let n_par = post.n_parameters();
         let mut eps = vec![0.0; d];
         while self.t < until {
             let t = self.t;
@@ -335,12 +358,7 @@ impl AmChain {
                 if accept {
                     self.accepted += 1;
                 }
-                let mut x = post.to_constrained(&self.z);
-                self.chain
-                    .ln_posterior
-                    .push(self.lp - post.ln_jacobian(&self.z));
-                self.chain.noise_var.push(x.split_off(n_par));
-                self.chain.theta.push(x);
+                self.chain.keep(post, &self.z, self.lp);
             }
             self.t += 1;
             if self.t % 100 == 0 {

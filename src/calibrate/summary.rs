@@ -1,6 +1,8 @@
 //! Posterior summaries and the `posterior.yaml` body.
 
-use super::diagnostics::{quantile_sorted, Diagnostics};
+use super::diagnostics::{mcse_quantile, quantile_sorted, Diagnostics};
+use super::discrepancy::{Hyper, HyperKind};
+use super::posterior::LogPosterior;
 use super::sampler::{Chain, SamplerParams, Termination};
 use crate::study::spec::SamplerChoice;
 use serde::{Deserialize, Serialize};
@@ -33,6 +35,18 @@ pub struct Marginal {
 pub struct Mcse {
     /// MCSE of the posterior mean, sd / √(bulk ESS).
     pub mean: f64,
+    /// MCSE of the median and of the 2.5 % and 97.5 % quantiles ([`mcse_quantile`];
+    /// absent, NaN, in records made before they were added).
+    #[serde(default = "nan")]
+    pub median: f64,
+    #[serde(default = "nan")]
+    pub q025: f64,
+    #[serde(default = "nan")]
+    pub q975: f64,
+}
+
+fn nan() -> f64 {
+    f64::NAN
 }
 
 /// The posterior of one experiment's unknown noise.
@@ -55,6 +69,37 @@ pub struct NoiseMcse {
     pub variance: f64,
 }
 
+/// The posterior, or the fixed value, of one model-discrepancy hyperparameter.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct HyperSummary {
+    /// `fixed`, or the prior it was sampled with (e.g. `half_normal(scale 0.1)`).
+    pub prior: String,
+    /// The value when fixed.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub value: Option<f64>,
+    /// Marginal posterior when sampled.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub posterior: Option<Marginal>,
+    /// R̂ and ESS when sampled.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub diagnostics: Option<Diagnostics>,
+    /// MCSE of the posterior mean when sampled.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub mcse_mean: Option<f64>,
+}
+
+/// The discrepancy of one output quantity of one experiment.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct DiscrepancySummary {
+    /// Correlation along x (`squared-exponential`, `matern52`, `matern32`).
+    pub kernel: String,
+    /// Its standard deviation s, output units.
+    pub sd: HyperSummary,
+    /// Its length-scale ℓ, x units (absent without x).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub length_scale: Option<HyperSummary>,
+}
+
 /// Posterior correlation matrix of the parameters.
 #[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
 pub struct Correlation {
@@ -75,6 +120,9 @@ pub struct PosteriorSummary {
     pub correlation: Correlation,
     /// Experiments whose noise was estimated, with their noise posterior.
     pub noise: Vec<(String, NoiseSummary)>,
+    /// Model discrepancy per (experiment, quantity), when the study has one
+    /// ([`PosteriorSummary::with_discrepancy`]).
+    pub discrepancy: Vec<(String, String, DiscrepancySummary)>,
     pub n_draws: usize,
     /// Warnings a reader must see (convergence, effective sample size).
     pub warnings: Vec<String>,
@@ -158,7 +206,7 @@ fn correlation(rows: &[&Vec<f64>], d: usize) -> Vec<Vec<f64>> {
 /// [`Chain::noise_var`]).
 ///
 /// # Formula
-/// MCSE of a mean: sd / √ESS_bulk. Vehtari et al. (2021) use the ESS of the raw draws
+/// MCSE of a mean: sd / √ESS_bulk; of a quantile: [`mcse_quantile`]. Vehtari et al. (2021) use the ESS of the raw draws
 /// for the mean; the bulk ESS (of the rank-normalised draws) equals it for a normal
 /// posterior and is close for smooth unimodal ones.
 pub fn summarize(names: &[String], noise_names: &[String], chains: &[Chain]) -> PosteriorSummary {
@@ -195,6 +243,9 @@ pub fn summarize(names: &[String], noise_names: &[String], chains: &[Chain]) -> 
         diagnostic_warnings(&names[j], &diag, &mut warnings);
         mcse.push(Mcse {
             mean: m.sd / diag.ess_bulk.sqrt(),
+            median: mcse_quantile(&per_chain, 0.5),
+            q025: mcse_quantile(&per_chain, 0.025),
+            q975: mcse_quantile(&per_chain, 0.975),
         });
         diagnostics.push(diag);
     }
@@ -252,8 +303,79 @@ pub fn summarize(names: &[String], noise_names: &[String], chains: &[Chain]) -> 
         mcse,
         correlation,
         noise,
+        discrepancy: Vec::new(),
         n_draws,
         warnings,
+    }
+}
+
+impl PosteriorSummary {
+    /// Add the summaries of the model-discrepancy hyperparameters of `post` (sampled
+    /// ones from the draws of `chains`, fixed ones as they are), with their warnings.
+    pub fn with_discrepancy(mut self, post: &LogPosterior<'_>, chains: &[Chain]) -> Self {
+        let mut column = 0;
+        for (_, lik) in &post.experiments {
+            let Some(d) = lik.discrepancy() else {
+                continue;
+            };
+            let mut per_block: Vec<(Option<HyperSummary>, Option<HyperSummary>)> =
+                vec![(None, None); d.blocks.len()];
+            for (b, kind, h) in d.hypers() {
+                let summary = if h.is_sampled() {
+                    let per_chain: Vec<Vec<f64>> = chains
+                        .iter()
+                        .map(|c| c.discrepancy.iter().map(|v| v[column]).collect())
+                        .collect();
+                    column += 1;
+                    let all: Vec<f64> = per_chain.iter().flatten().copied().collect();
+                    let m = marginal(&all);
+                    let diag = Diagnostics::of(&per_chain);
+                    let what = match kind {
+                        HyperKind::Sd => "discrepancy sd",
+                        HyperKind::LengthScale => "discrepancy length-scale",
+                    };
+                    diagnostic_warnings(
+                        &format!("{what} of {}.{}", lik.name, d.blocks[b].quantity),
+                        &diag,
+                        &mut self.warnings,
+                    );
+                    HyperSummary {
+                        prior: h.describe(),
+                        value: None,
+                        posterior: Some(m),
+                        diagnostics: Some(diag),
+                        mcse_mean: Some(m.sd / diag.ess_bulk.sqrt()),
+                    }
+                } else {
+                    let Hyper::Fixed(v) = h else {
+                        unreachable!("not sampled means fixed")
+                    };
+                    HyperSummary {
+                        prior: h.describe(),
+                        value: Some(v),
+                        posterior: None,
+                        diagnostics: None,
+                        mcse_mean: None,
+                    }
+                };
+                match kind {
+                    HyperKind::Sd => per_block[b].0 = Some(summary),
+                    HyperKind::LengthScale => per_block[b].1 = Some(summary),
+                }
+            }
+            for (blk, (sd, length_scale)) in d.blocks.iter().zip(per_block) {
+                self.discrepancy.push((
+                    lik.name.clone(),
+                    blk.quantity.clone(),
+                    DiscrepancySummary {
+                        kernel: d.kernel.name().into(),
+                        sd: sd.expect("every block has an sd"),
+                        length_scale,
+                    },
+                ));
+            }
+        }
+        self
     }
 }
 
@@ -303,6 +425,10 @@ pub struct PosteriorBody {
     /// noise is known.
     #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
     pub noise: BTreeMap<String, NoiseSummary>,
+    /// Model discrepancy by experiment and output quantity; absent without
+    /// `calibration.discrepancy`.
+    #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
+    pub discrepancy: BTreeMap<String, BTreeMap<String, DiscrepancySummary>>,
     pub settings: SettingsWire,
     pub chains: Vec<ChainWire>,
     pub n_draws: usize,
@@ -339,9 +465,21 @@ impl PosteriorBody {
                 .cloned()
                 .zip(s.diagnostics.iter().copied())
                 .collect(),
-            mcse: s.names.iter().cloned().zip(s.mcse.iter().copied()).collect(),
+            mcse: s
+                .names
+                .iter()
+                .cloned()
+                .zip(s.mcse.iter().copied())
+                .collect(),
             correlation: s.correlation.clone(),
             noise: s.noise.iter().cloned().collect(),
+            discrepancy: {
+                let mut m: BTreeMap<String, BTreeMap<String, DiscrepancySummary>> = BTreeMap::new();
+                for (e, q, d) in &s.discrepancy {
+                    m.entry(e.clone()).or_default().insert(q.clone(), d.clone());
+                }
+                m
+            },
             settings: SettingsWire {
                 sampler: match params.kind {
                     SamplerChoice::AdaptiveMetropolis => {
@@ -356,12 +494,19 @@ impl PosteriorBody {
                 warmup: params.warmup,
                 draws: params.draws,
                 seed: params.seed,
-                likelihood: if s.noise.is_empty() {
-                    "Gaussian: known measurement noise plus surrogate predictive variance"
-                } else {
-                    "Gaussian: measurement noise (known, or unknown variance with an inverse-gamma prior, sampled) plus surrogate predictive variance"
-                }
-                .into(),
+                likelihood: format!(
+                    "{}{}",
+                    if s.noise.is_empty() {
+                        "Gaussian: known measurement noise plus surrogate predictive variance"
+                    } else {
+                        "Gaussian: measurement noise (known, or unknown variance with an inverse-gamma prior, sampled) plus surrogate predictive variance"
+                    },
+                    if s.discrepancy.is_empty() {
+                        ""
+                    } else {
+                        " plus a Gaussian-process model discrepancy over x"
+                    }
+                ),
                 max_draws: params.until_converged,
                 prior_from: None,
             },

@@ -11,15 +11,18 @@
 //!
 //! # Method
 //! For each draw s (θ_s, σ_s²) and each measurement o of an output value i, the
-//! replicated measurement is y_rep,o ~ N(μ_i(θ_s), v_i(θ_s) + σ_o²), with μ, v the
-//! surrogate's mean and marginal variance. The 95 % interval of a measurement is the
+//! replicated measurement is y_rep,o ~ N(μ_i(θ_s), v_i(θ_s) + s_q,s² + σ_o²), with μ, v
+//! the surrogate's mean and marginal variance and s_q,s the model-discrepancy sd of the
+//! value's output quantity at that draw (0 without `calibration.discrepancy`): the
+//! discrepancy enters with its prior marginal variance given the hyperparameters, like
+//! the surrogate's error, not conditioned on the data. The 95 % interval of a measurement is the
 //! 2.5 % and 97.5 % quantiles of its replicated values over the draws; its standardised
 //! residual is (y − E y_rep)/sd(y_rep). The discrepancy is
-//! T(y, θ) = Σ_o (y_o − μ_i(θ))² / (v_i(θ) + σ_o²), and the p-value is the share of
+//! T(y, θ) = Σ_o (y_o − μ_i(θ))² / (v_i(θ) + s_q² + σ_o²), and the p-value is the share of
 //! draws with T(y_rep, θ_s) ≥ T(y, θ_s) (Gelman, Meng & Stern 1996, eq. 2.4 and §2.3;
-//! BDA3 §6.3). Surrogate errors are taken independent across output values here (the
-//! marginal variances), a simplification of the calibration's likelihood when a
-//! principal-component basis correlates them.
+//! BDA3 §6.3). Surrogate and discrepancy errors are taken independent across output
+//! values here (the marginal variances), a simplification of the calibration's likelihood when a
+//! principal-component basis or the discrepancy's correlation along x correlates them.
 //!
 //! # References
 //! Gelman, A., Meng, X.-L. & Stern, H. (1996). Posterior predictive assessment of model
@@ -225,9 +228,20 @@ fn quantile(sorted: &[f64], p: f64) -> f64 {
     crate::calibrate::quantile_sorted(sorted, p)
 }
 
+/// Per-draw spreads that enter the predictive distribution besides the surrogate's.
+#[derive(Debug, Clone, Copy, Default)]
+pub struct DrawnVariances<'a> {
+    /// The drawn noise sd of each draw, when the noise is estimated.
+    pub noise_sd: Option<&'a [f64]>,
+    /// The model-discrepancy sd of each output quantity at each draw (`[draw][quantity]`),
+    /// when the calibration has a discrepancy.
+    pub discrepancy_sd: Option<&'a [Vec<f64>]>,
+}
+
 /// Check experiment `e` against its surrogate `model` at posterior `draws`.
 ///
-/// `noise_sd` holds the drawn noise sd of each draw when the noise is estimated.
+/// `drawn` holds the noise and discrepancy sds of each draw where they were estimated
+/// (or fixed, for the discrepancy).
 /// Returns `None` when the surrogate's outputs do not match the field data, or there are
 /// no draws.
 pub fn check_experiment<R: Rng + ?Sized>(
@@ -235,9 +249,10 @@ pub fn check_experiment<R: Rng + ?Sized>(
     e: &Experiment,
     model: &dyn Emulator,
     draws: &[Vec<f64>],
-    noise_sd: Option<&[f64]>,
+    drawn: DrawnVariances<'_>,
     rng: &mut R,
 ) -> Option<ExperimentCheck> {
+    let noise_sd = drawn.noise_sd;
     let targets = e.data.targets(study.simulator.output.y.len());
     let conditions = e.data.conditions();
     if draws.is_empty() {
@@ -272,7 +287,10 @@ pub fn check_experiment<R: Rng + ?Sized>(
                 (None, Some(ns)) => ns[s] * ns[s],
                 (None, None) => 0.0,
             };
-            let var = (v[*i] + noise_var).max(f64::MIN_POSITIVE);
+            let disc_var = drawn
+                .discrepancy_sd
+                .map_or(0.0, |d| d[s][targets[*i].quantity].powi(2));
+            let var = (v[*i] + noise_var + disc_var).max(f64::MIN_POSITIVE);
             let eps: f64 = rng.sample(StandardNormal);
             let y_rep = m[*i] + var.sqrt() * eps;
             reps[o].push(y_rep);

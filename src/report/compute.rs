@@ -143,17 +143,19 @@ pub struct PredictiveQuantity {
 ///
 /// # Formula
 /// With surrogate mean μ(θ) and variance s²(θ) at each draw θ, and noise variance σ²:
-/// mean = E(μ), sd_model² = E(s²) + Var(μ), sd_total² = sd_model² + E(σ²) (expectations
-/// over the draws; Var with divisor n). σ² is the study's known noise (per output value,
-/// the mean of its replicates' sd²) or, for unknown noise, the drawn σ² of each draw.
+/// mean = E(μ), sd_model² = E(s²) + Var(μ), sd_total² = sd_model² + E(σ²) + E(s_δ²)
+/// (expectations over the draws; Var with divisor n). σ² is the study's known noise (per
+/// output value, the mean of its replicates' sd²) or, for unknown noise, the drawn σ² of
+/// each draw; s_δ the model-discrepancy sd of the value's quantity at each draw (0
+/// without a discrepancy).
 ///
 /// With controls, the bands are drawn against each control in turn: one quantity per
 /// control, output quantity and station (`y against T`), its points the field
 /// conditions sorted by that control.
 ///
 /// `model` is the experiment's field emulator with `n_outputs` entries; `draws` are
-/// parameter vectors; `noise_sd` the draws' noise sds for unknown noise (same length as
-/// `draws`), else `None`. Returns `None` when the surrogate's outputs do not match the
+/// parameter vectors; `drawn` the draws' noise sds for unknown noise and discrepancy sds
+/// (same length as `draws`), else `None`. Returns `None` when the surrogate's outputs do not match the
 /// field data (a stale surrogate) or there are no draws.
 pub fn predictive(
     study: &Study,
@@ -161,8 +163,9 @@ pub fn predictive(
     model: &dyn Emulator,
     n_outputs: usize,
     draws: &[Vec<f64>],
-    noise_sd: Option<&[f64]>,
+    drawn: crate::check::DrawnVariances<'_>,
 ) -> Option<Vec<PredictiveQuantity>> {
+    let noise_sd = drawn.noise_sd;
     let targets = e.data.targets(study.simulator.output.y.len());
     if targets.len() != n_outputs || draws.is_empty() {
         return None;
@@ -223,11 +226,14 @@ pub fn predictive(
                 sds.iter().map(|s| s * s).sum::<f64>() / sds.len().max(1) as f64
             }
         };
+        let disc_var = drawn.discrepancy_sd.map_or(0.0, |d| {
+            d.iter().map(|r| r[t.quantity].powi(2)).sum::<f64>() / d.len().max(1) as f64
+        });
         let point = BandPoint {
             x: t.x,
             mean,
             sd_model,
-            sd_total: (sd_model * sd_model + noise_var).sqrt(),
+            sd_total: (sd_model * sd_model + noise_var + disc_var).sqrt(),
             observed: t.values.clone(),
         };
         if study.controls.is_empty() {
@@ -322,12 +328,24 @@ mod tests {
         crate::study::parse_with_data(&text, "x,y,s\n0,1.5,0.2\n1,2.0,0.4\n1,9.0,0.2\n")
     }
 
+    /// The bands of `s`'s experiment at `draws`, with the drawn noise and discrepancy
+    /// sds `drawn`, against the surrogate [`Linear`] of `n_outputs` values.
+    fn bands(
+        s: &Study,
+        n_outputs: usize,
+        draws: &[Vec<f64>],
+        drawn: crate::check::DrawnVariances<'_>,
+    ) -> Option<Vec<PredictiveQuantity>> {
+        predictive(s, &s.experiments[0], &Linear, n_outputs, draws, drawn)
+    }
+
     #[test]
     fn predictive_bands_follow_the_law_of_total_variance() {
+        use crate::check::DrawnVariances;
         // Draws θ = 1 and 3: E[μ] = (2, 4), Var[μ] = (1, 4) (divisor n), E[s²] = (0.01, 0.04).
         let draws = vec![vec![1.0], vec![3.0]];
         let s = study("{sd: 0.1}");
-        let q = predictive(&s, &s.experiments[0], &Linear, 2, &draws, None).unwrap();
+        let q = bands(&s, 2, &draws, DrawnVariances::default()).unwrap();
         assert_eq!(q.len(), 1);
         let p = &q[0].points;
         assert_eq!((p[0].x, p[1].x), (Some(0.0), Some(1.0)));
@@ -339,19 +357,33 @@ mod tests {
         // Within 2·sd_total: 1.5 (|−0.5| ≤ 2.02) and 2.0 (|−2| ≤ 4.03); 9.0 is not.
         assert!((band_coverage(&q).unwrap() - 2.0 / 3.0).abs() < 1e-12);
 
+        // A discrepancy: the mean of the drawn s_δ² (0.2² and 0.4²: 0.1) is added.
+        let disc = [vec![0.2], vec![0.4]];
+        let drawn = DrawnVariances {
+            noise_sd: None,
+            discrepancy_sd: Some(&disc),
+        };
+        let q = bands(&s, 2, &draws, drawn).unwrap();
+        assert!((q[0].points[0].sd_total - (1.02f64 + 0.1).sqrt()).abs() < 1e-12);
+
         // Per-row sds: the mean of the replicates' sd² at each station.
         let s = study("{sd_column: s}");
-        let q = predictive(&s, &s.experiments[0], &Linear, 2, &draws, None).unwrap();
+        let q = bands(&s, 2, &draws, DrawnVariances::default()).unwrap();
         let p = &q[0].points;
         assert!((p[1].sd_total - (4.04f64 + (0.16 + 0.04) / 2.0).sqrt()).abs() < 1e-12);
 
         // Unknown noise: the mean of the drawn σ².
         let s = study("{unknown: {shape: 3, scale: 1}}");
-        let q = predictive(&s, &s.experiments[0], &Linear, 2, &draws, Some(&[0.1, 0.3])).unwrap();
+        let drawn = DrawnVariances {
+            noise_sd: Some(&[0.1, 0.3]),
+            discrepancy_sd: None,
+        };
+        let q = bands(&s, 2, &draws, drawn).unwrap();
         assert!((q[0].points[0].sd_total - (1.01f64 + 0.05).sqrt()).abs() < 1e-12);
 
         // A surrogate with other outputs than the data (stale) gives no bands.
-        assert!(predictive(&s, &s.experiments[0], &Linear, 3, &draws, None).is_none());
+        assert!(bands(&s, 3, &draws, DrawnVariances::default()).is_none());
+        assert!(bands(&s, 2, &[], DrawnVariances::default()).is_none());
     }
 
     #[test]

@@ -459,6 +459,55 @@ pub struct CalibrationSpec {
     /// (a multivariate normal in the unconstrained space). Relative to the study file.
     #[serde(default)]
     pub prior_from: Option<String>,
+    /// A model-discrepancy term δ(x) added to the simulator (Kennedy & O'Hagan 2001):
+    /// a Gaussian process over the curve's x (an independent offset per output quantity
+    /// for scalar outputs). Default: none.
+    #[serde(default)]
+    pub discrepancy: Option<DiscrepancySpec>,
+}
+
+/// `calibration.discrepancy`: the model-discrepancy term and its hyperparameters.
+#[derive(Debug, Clone, Deserialize, PartialEq, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct DiscrepancySpec {
+    /// Correlation of δ along the curve's x. Default `squared-exponential`.
+    #[serde(default = "default_discrepancy_kernel")]
+    pub kernel: KernelChoice,
+    /// Standard deviation of δ, in the output's unit: `{fixed: v}` or
+    /// `{half_normal: {scale: s}}` (sampled). Default: half-normal with the scale the
+    /// sample sd of the quantity's field values.
+    #[serde(default)]
+    pub sd: Option<DiscrepancySdSpec>,
+    /// Length-scale of δ along x, in x's unit (curves only): `{fixed: v}` or
+    /// `{lognormal: {mu, sigma}}` (sampled; mu and sigma of ln ℓ). Default: lognormal with
+    /// median half the span of the field x values and sigma 1.
+    #[serde(default)]
+    pub length_scale: Option<LengthScaleSpec>,
+    /// Experiments that get a discrepancy. Default: every experiment.
+    #[serde(default)]
+    pub experiments: Option<Vec<String>>,
+}
+
+fn default_discrepancy_kernel() -> KernelChoice {
+    KernelChoice::SquaredExponential
+}
+
+/// `calibration.discrepancy.sd`: `{fixed: v}` | `{half_normal: {scale}}`.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum DiscrepancySdSpec {
+    /// Fixed at this value (output units, > 0).
+    Fixed(f64),
+    /// Sampled, with a half-normal prior of this scale (output units, > 0).
+    HalfNormal { scale: f64 },
+}
+
+/// `calibration.discrepancy.length_scale`: `{fixed: v}` | `{lognormal: {mu, sigma}}`.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum LengthScaleSpec {
+    /// Fixed at this value (x units, > 0).
+    Fixed(f64),
+    /// Sampled, ln ℓ ~ normal(mu, sigma).
+    Lognormal { mu: f64, sigma: f64 },
 }
 
 impl Default for CalibrationSpec {
@@ -473,6 +522,7 @@ impl Default for CalibrationSpec {
             until_converged: false,
             max_draws: None,
             prior_from: None,
+            discrepancy: None,
         }
     }
 }
@@ -609,6 +659,95 @@ impl<'de> Deserialize<'de> for NoiseSpec {
             other => Err(format!("unknown noise form `{other}`; expected {EXPECTED}")),
         }
         .map_err(D::Error::custom)
+    }
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct HalfNormalWire {
+    scale: f64,
+}
+
+impl<'de> Deserialize<'de> for DiscrepancySdSpec {
+    fn deserialize<D: Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+        const EXPECTED: &str = "`{fixed: v}` or `{half_normal: {scale: s}}`";
+        let v = Value::deserialize(d)?;
+        let (k, inner) = one_key(v, "sd", EXPECTED).map_err(D::Error::custom)?;
+        match k.as_str() {
+            "fixed" => sub::<f64>(inner, "fixed").map(DiscrepancySdSpec::Fixed),
+            "half_normal" => sub::<HalfNormalWire>(inner, "half_normal")
+                .map(|w| DiscrepancySdSpec::HalfNormal { scale: w.scale }),
+            other => Err(format!("unknown sd form `{other}`; expected {EXPECTED}")),
+        }
+        .map_err(D::Error::custom)
+    }
+}
+
+impl<'de> Deserialize<'de> for LengthScaleSpec {
+    fn deserialize<D: Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+        const EXPECTED: &str = "`{fixed: v}` or `{lognormal: {mu, sigma}}`";
+        let v = Value::deserialize(d)?;
+        let (k, inner) = one_key(v, "length_scale", EXPECTED).map_err(D::Error::custom)?;
+        match k.as_str() {
+            "fixed" => sub::<f64>(inner, "fixed").map(LengthScaleSpec::Fixed),
+            "lognormal" => {
+                sub::<LognormalWire>(inner, "lognormal").map(|w| LengthScaleSpec::Lognormal {
+                    mu: w.mu,
+                    sigma: w.sigma,
+                })
+            }
+            other => Err(format!(
+                "unknown length_scale form `{other}`; expected {EXPECTED}"
+            )),
+        }
+        .map_err(D::Error::custom)
+    }
+}
+
+/// The schema of `{fixed: number}`.
+fn fixed_schema(description: &str) -> serde_json::Value {
+    serde_json::json!({
+        "type": "object",
+        "description": description,
+        "properties": {"fixed": {"type": "number", "exclusiveMinimum": 0}},
+        "required": ["fixed"],
+        "additionalProperties": false,
+    })
+}
+
+impl JsonSchema for DiscrepancySdSpec {
+    fn schema_name() -> std::borrow::Cow<'static, str> {
+        "DiscrepancySdSpec".into()
+    }
+
+    /// As [`DiscrepancySdSpec`]'s reader: exactly one of `fixed` (a number) or
+    /// `half_normal` (number `scale`).
+    fn json_schema(_: &mut SchemaGenerator) -> Schema {
+        json_schema!({
+            "description": "Standard deviation of the model discrepancy, in the output's unit: `{fixed: v}` or `{half_normal: {scale: s}}` (sampled). Default: half-normal with scale 0.1 × the largest mean measured value of the quantity.",
+            "oneOf": [
+                fixed_schema("Fixed at this value."),
+                one_key_schema("half_normal", &["scale"], "Sampled, with a half-normal prior of this scale."),
+            ]
+        })
+    }
+}
+
+impl JsonSchema for LengthScaleSpec {
+    fn schema_name() -> std::borrow::Cow<'static, str> {
+        "LengthScaleSpec".into()
+    }
+
+    /// As [`LengthScaleSpec`]'s reader: exactly one of `fixed` (a number) or `lognormal`
+    /// (numbers `mu`, `sigma`).
+    fn json_schema(_: &mut SchemaGenerator) -> Schema {
+        json_schema!({
+            "description": "Length-scale of the model discrepancy along x, in x's unit (curves only): `{fixed: v}` or `{lognormal: {mu, sigma}}` (sampled; mu and sigma of ln ℓ). Default: lognormal with median half the span of the field x values and sigma 1.",
+            "oneOf": [
+                fixed_schema("Fixed at this value."),
+                one_key_schema("lognormal", &["mu", "sigma"], "Sampled: ln ℓ is normal with mean mu and standard deviation sigma."),
+            ]
+        })
     }
 }
 

@@ -146,6 +146,21 @@ pub struct CalibrationParams {
     pub until_converged: Option<usize>,
     /// The earlier `posterior.yaml` whose draws are the prior, resolved.
     pub prior_from: Option<PathBuf>,
+    /// `calibration.discrepancy`, checked.
+    pub discrepancy: Option<DiscrepancyParams>,
+}
+
+/// The model-discrepancy settings after checks.
+#[derive(Debug, Clone, PartialEq)]
+pub struct DiscrepancyParams {
+    pub kernel: KernelChoice,
+    /// `None`: sampled with the default half-normal prior (scale from the data).
+    pub sd: Option<DiscrepancySdSpec>,
+    /// `None`: sampled with the default lognormal prior (from the x span); unused for
+    /// scalar outputs.
+    pub length_scale: Option<LengthScaleSpec>,
+    /// The experiments with a discrepancy (every experiment unless named).
+    pub experiments: Vec<String>,
 }
 
 /// A checked study.
@@ -982,6 +997,11 @@ pub fn parse(
         Some(path)
     });
 
+    let discrepancy = cal
+        .discrepancy
+        .as_ref()
+        .map(|d| check_discrepancy(&mut c, d, &spec));
+
     if !c.errors.is_empty() {
         // Dedupe identical messages (a placeholder error repeats per experiment).
         let mut seen = BTreeSet::new();
@@ -1040,8 +1060,73 @@ pub fn parse(
                 .until_converged
                 .then(|| cal.max_draws.unwrap_or(4 * cal.draws)),
             prior_from,
+            discrepancy,
         },
     })
+}
+
+/// One check per invariant of `calibration.discrepancy`.
+fn check_discrepancy(
+    c: &mut Checker<'_>,
+    d: &DiscrepancySpec,
+    spec: &StudySpec,
+) -> DiscrepancyParams {
+    match d.sd {
+        Some(DiscrepancySdSpec::Fixed(v)) if !(v > 0.0 && v.is_finite()) => c.err(
+            "calibration.discrepancy.sd.fixed",
+            format!("discrepancy sd {v} must be a finite number > 0"),
+        ),
+        Some(DiscrepancySdSpec::HalfNormal { scale }) if !(scale > 0.0 && scale.is_finite()) => c
+            .err(
+                "calibration.discrepancy.sd.half_normal.scale",
+                format!("half-normal scale {scale} must be a finite number > 0"),
+            ),
+        _ => {}
+    }
+    match d.length_scale {
+        Some(_) if spec.simulator.output.x.is_none() && spec.controls.is_empty() => c.err(
+            "calibration.discrepancy.length_scale",
+            "length_scale needs curve outputs (`simulator.output.x`) or `controls`; with scalar outputs and no controls the discrepancy is an independent offset per output quantity",
+        ),
+        Some(LengthScaleSpec::Fixed(v)) if !(v > 0.0 && v.is_finite()) => c.err(
+            "calibration.discrepancy.length_scale.fixed",
+            format!("discrepancy length_scale {v} must be a finite number > 0"),
+        ),
+        Some(LengthScaleSpec::Lognormal { mu, sigma }) if !(sigma > 0.0 && sigma.is_finite() && mu.is_finite()) => {
+            c.err(
+                "calibration.discrepancy.length_scale.lognormal",
+                format!("lognormal mu {mu} must be finite and sigma {sigma} a finite number > 0"),
+            )
+        }
+        _ => {}
+    }
+    let all: Vec<String> = spec.experiments.iter().map(|e| e.name.clone()).collect();
+    let experiments = match &d.experiments {
+        None => all,
+        Some(names) => {
+            if names.is_empty() {
+                c.err(
+                    "calibration.discrepancy.experiments",
+                    "name at least one experiment (or leave the key out for every experiment)",
+                );
+            }
+            for (i, n) in names.iter().enumerate() {
+                if !all.contains(n) {
+                    c.err(
+                        format!("calibration.discrepancy.experiments[{i}]"),
+                        format!("no experiment `{n}` (experiments: {})", all.join(", ")),
+                    );
+                }
+            }
+            names.clone()
+        }
+    };
+    DiscrepancyParams {
+        kernel: d.kernel,
+        sd: d.sd,
+        length_scale: d.length_scale,
+        experiments,
+    }
 }
 
 fn check_placeholders(

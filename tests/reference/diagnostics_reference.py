@@ -13,6 +13,12 @@ assessing convergence of MCMC", Bayesian Analysis 16(2), 667-718 (2021):
 * ess_tail - tail effective sample size, the smaller of the ESS of the
              indicators I(x <= q_0.05) and I(x <= q_0.95);
              arviz.ess(draws, method="tail")
+* mcse_quantile - Monte Carlo standard error of the 2.5 %, 50 % and 97.5 %
+             quantiles (the paper's section 4.3): the ESS N of the indicator
+             I(x <= q_p) over split chains, the Beta(N p + 1, N (1 - p) + 1)
+             quantiles a, b at 0.1586553 and 0.8413447, then half the distance
+             between the sorted draws at floor(max(a S - 1, 0)) and
+             ceil(min(b S - 1, S - 1)); arviz.mcse(draws, method="quantile", prob=p)
 
 `draws` is a numpy array of shape (chain, draw), which these ArviZ functions
 take directly as one scalar variable.
@@ -217,6 +223,18 @@ def direct_ess_tail(x):
     )
 
 
+def direct_mcse_quantile(x, p):
+    ind = (x <= type7_quantile(x, p)).astype(float)
+    n_eff = direct_ess(split(ind))
+    a, b = stats.beta.ppf([0.1586553, 0.8413447], n_eff * p + 1, n_eff * (1 - p) + 1)
+    v = np.sort(x.ravel())
+    s = v.size
+    return (v[int(np.ceil(min(b * s - 1, s - 1)))] - v[int(np.floor(max(a * s - 1, 0)))]) / 2
+
+
+QUANTILE_PROBS = (0.025, 0.5, 0.975)
+
+
 def check(name, what, got, want, rtol=1e-9):
     if not np.isfinite(got) or abs(got - want) > rtol * max(1.0, abs(want)):
         sys.exit(f"{name}: arviz {what} = {got!r} but direct evaluation gives {want!r}")
@@ -235,6 +253,11 @@ def main():
         check(name, "rhat", rhat, direct_rhat(draws))
         check(name, "ess_bulk", ess_bulk, direct_ess_bulk(draws))
         check(name, "ess_tail", ess_tail, direct_ess_tail(draws))
+        mcse_q = {}
+        for p in QUANTILE_PROBS:
+            got = float(az.mcse(draws, method="quantile", prob=p))
+            check(name, f"mcse_quantile({p})", got, direct_mcse_quantile(draws, p))
+            mcse_q[str(p)] = got
         out_cases.append(
             {
                 "name": name,
@@ -243,6 +266,7 @@ def main():
                 "rhat": rhat,
                 "ess_bulk": ess_bulk,
                 "ess_tail": ess_tail,
+                "mcse_quantile": mcse_q,
             }
         )
 
@@ -255,7 +279,8 @@ def main():
         "method": (
             "rank-normalized split-Rhat (max of bulk and folded), bulk ESS and tail ESS, "
             "Vehtari, Gelman, Simpson, Carpenter & Bürkner (2021), Bayesian Analysis 16(2), "
-            "667-718; arviz.rhat(method='rank'), arviz.ess(method='bulk'|'tail')"
+            "667-718; arviz.rhat(method='rank'), arviz.ess(method='bulk'|'tail'), "
+            "arviz.mcse(method='quantile', prob=0.025|0.5|0.975)"
         ),
         "draws": f"rounded to {SIG_DIGITS} significant digits; diagnostics computed from the rounded values",
     }
@@ -276,7 +301,8 @@ def main():
         lines.append("      ],")
         lines.append(f'      "rhat": {json.dumps(c["rhat"])},')
         lines.append(f'      "ess_bulk": {json.dumps(c["ess_bulk"])},')
-        lines.append(f'      "ess_tail": {json.dumps(c["ess_tail"])}')
+        lines.append(f'      "ess_tail": {json.dumps(c["ess_tail"])},')
+        lines.append(f'      "mcse_quantile": {json.dumps(c["mcse_quantile"])}')
         lines.append("    }" + ("," if i + 1 < len(out_cases) else ""))
     lines.append("  ]")
     lines.append("}")
