@@ -162,12 +162,14 @@ fn print_summary(s: &Study, c: &Campaign) {
     out!("study {} ({})", s.name, s.file.display());
     out!("  campaign folder: {}", c.dir.display());
     out!("  parameters:");
-    for p in &s.parameters {
-        let unit = p
-            .unit
+    let unit_of = |p: &assay::study::Parameter| {
+        p.unit
             .as_deref()
             .map(|u| format!(" {u}"))
-            .unwrap_or_default();
+            .unwrap_or_default()
+    };
+    for p in &s.parameters {
+        let unit = unit_of(p);
         out!(
             "    {:<12} [{}, {}]{unit}  prior {:?}",
             p.name,
@@ -179,12 +181,7 @@ fn print_summary(s: &Study, c: &Campaign) {
     if !s.controls.is_empty() {
         out!("  controls:");
         for p in &s.controls {
-            let unit = p
-                .unit
-                .as_deref()
-                .map(|u| format!(" {u}"))
-                .unwrap_or_default();
-            out!("    {:<12} [{}, {}]{unit}", p.name, p.lo, p.hi);
+            out!("    {:<12} [{}, {}]{}", p.name, p.lo, p.hi, unit_of(p));
         }
     }
     out!("  simulator: {}", s.simulator.command.join(" "));

@@ -98,6 +98,17 @@ surrogate: {{mean: linear}}
     env.write("study.yaml", &text)
 }
 
+/// `assay all` on `study`, which must succeed.
+fn run_all(env: &Env, study: &Path) {
+    let out = env.assay(["all"]).arg(study).output().unwrap();
+    assert!(
+        out.status.success(),
+        "{}\n{}",
+        String::from_utf8_lossy(&out.stdout),
+        String::from_utf8_lossy(&out.stderr)
+    );
+}
+
 fn posterior(env: &Env) -> Posterior {
     let text = env.read("runs/cond/posterior.yaml");
     serde_yaml::from_str(&text).unwrap_or_else(|e| panic!("{e}\n{text}"))
@@ -119,13 +130,7 @@ fn exponential_decay_over_temperature_covers_the_truth() {
         sd,
         "design: {points: 60, seed: 2}\ncalibration: {chains: 4, warmup: 1000, draws: 2000, seed: 5}\n",
     );
-    let out = env.assay(["all"]).arg(&study).output().unwrap();
-    assert!(
-        out.status.success(),
-        "{}\n{}",
-        String::from_utf8_lossy(&out.stdout),
-        String::from_utf8_lossy(&out.stderr)
-    );
+    run_all(&env, &study);
     // 60 runs, each at its own (T, A, B) of a joint design over the three.
     let design = env.read("runs/cond/design.yaml");
     assert!(design.contains("- T"), "{design}");
@@ -187,13 +192,7 @@ fn linear_in_the_parameters_matches_the_closed_form_posterior() {
         sd,
         "design: {points: 60, seed: 4}\ncalibration: {chains: 4, warmup: 1000, draws: 3000, seed: 9}\n",
     );
-    let out = env.assay(["all"]).arg(&study).output().unwrap();
-    assert!(
-        out.status.success(),
-        "{}\n{}",
-        String::from_utf8_lossy(&out.stdout),
-        String::from_utf8_lossy(&out.stderr)
-    );
+    run_all(&env, &study);
     // Closed form: precision P = S0⁻¹ + ΦᵀΦ/σ², mean = P⁻¹ (S0⁻¹ m0 + Φᵀy/σ²).
     let s2 = sd * sd;
     let (mut p11, mut p12, mut p22) = (1.0 / (s0[0] * s0[0]), 0.0, 1.0 / (s0[1] * s0[1]));
@@ -300,13 +299,7 @@ fn discrepancy_over_the_conditions() {
         sd,
         "design: {points: 60, seed: 2}\ncalibration: {chains: 4, warmup: 1000, draws: 2000, seed: 5, discrepancy: {}}\n",
     );
-    let out = env.assay(["all"]).arg(&study).output().unwrap();
-    assert!(
-        out.status.success(),
-        "{}\n{}",
-        String::from_utf8_lossy(&out.stdout),
-        String::from_utf8_lossy(&out.stderr)
-    );
+    run_all(&env, &study);
     let samples = env.read("runs/cond/posterior-samples.csv");
     let header = samples.lines().next().unwrap();
     assert!(

@@ -88,6 +88,37 @@ pub enum Round {
     },
 }
 
+impl Round {
+    /// The same round with its point count mapped by `f` (parameter points ↔ points at
+    /// every field condition).
+    fn scaled(&self, f: impl Fn(usize) -> usize) -> Round {
+        match *self {
+            Round::Initial {
+                method,
+                n,
+                seed,
+                search,
+            } => Round::Initial {
+                method,
+                n: f(n),
+                seed,
+                search,
+            },
+            Round::Added {
+                n,
+                fill,
+                seed,
+                stream,
+            } => Round::Added {
+                n: f(n),
+                fill,
+                seed,
+                stream,
+            },
+        }
+    }
+}
+
 /// A set of points over the parameter box.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Design {
@@ -255,28 +286,11 @@ fn generate_at_conditions(
             });
         }
     }
-    let n = points.len();
+    let m = conditions.len();
     Ok(Design {
         names: params.iter().map(|p| p.name.clone()).collect(),
         points,
-        rounds: base
-            .rounds
-            .into_iter()
-            .map(|r| match r {
-                Round::Initial {
-                    method,
-                    seed,
-                    search,
-                    ..
-                } => Round::Initial {
-                    method,
-                    n,
-                    seed,
-                    search,
-                },
-                other => other,
-            })
-            .collect(),
+        rounds: base.rounds.iter().map(|r| r.scaled(|k| k * m)).collect(),
         ..base
     })
 }
@@ -388,34 +402,7 @@ pub fn augment_at_conditions(
                 values: p.values[n_c..].to_vec(),
             })
             .collect(),
-        rounds: design
-            .rounds
-            .iter()
-            .map(|r| match *r {
-                Round::Initial {
-                    method,
-                    n,
-                    seed,
-                    search,
-                } => Round::Initial {
-                    method,
-                    n: n / m,
-                    seed,
-                    search,
-                },
-                Round::Added {
-                    n,
-                    fill,
-                    seed,
-                    stream,
-                } => Round::Added {
-                    n: n / m,
-                    fill,
-                    seed,
-                    stream,
-                },
-            })
-            .collect(),
+        rounds: design.rounds.iter().map(|r| r.scaled(|k| k / m)).collect(),
         ..design.clone()
     };
     let grown = augment(&inner, params, n_add)?;

@@ -496,17 +496,7 @@ pub fn parse(
             );
         }
         let [lo, hi] = p.range;
-        if !(lo.is_finite() && hi.is_finite()) {
-            c.err(
-                format!("{key}.range"),
-                format!("range [{lo}, {hi}] must be finite"),
-            );
-        } else if lo >= hi {
-            c.err(
-                format!("{key}.range"),
-                format!("range [{lo}, {hi}] is reversed or empty (expected [low, high] with low < high)"),
-            );
-        }
+        check_range(&mut c, &key, lo, hi);
         let prior = match p.prior {
             PriorSpec::Uniform => Prior::Uniform,
             PriorSpec::Normal { mean, sd } => {
@@ -582,17 +572,7 @@ pub fn parse(
             );
         }
         let [lo, hi] = p.range;
-        if !(lo.is_finite() && hi.is_finite()) {
-            c.err(
-                format!("{key}.range"),
-                format!("range [{lo}, {hi}] must be finite"),
-            );
-        } else if lo >= hi {
-            c.err(
-                format!("{key}.range"),
-                format!("range [{lo}, {hi}] is reversed or empty (expected [low, high] with low < high)"),
-            );
-        }
+        check_range(&mut c, &key, lo, hi);
         controls.push(Parameter {
             name: p.name.clone(),
             unit: p.unit.clone(),
@@ -1126,6 +1106,23 @@ fn check_discrepancy(
         sd: d.sd,
         length_scale: d.length_scale,
         experiments,
+    }
+}
+
+/// `{key}.range`: two finite numbers, low < high.
+fn check_range(c: &mut Checker<'_>, key: &str, lo: f64, hi: f64) {
+    if !(lo.is_finite() && hi.is_finite()) {
+        c.err(
+            format!("{key}.range"),
+            format!("range [{lo}, {hi}] must be finite"),
+        );
+    } else if lo >= hi {
+        c.err(
+            format!("{key}.range"),
+            format!(
+                "range [{lo}, {hi}] is reversed or empty (expected [low, high] with low < high)"
+            ),
+        );
     }
 }
 
