@@ -88,3 +88,46 @@ fn borehole_is_reproduced_to_one_percent_of_its_spread() {
         "coverage {coverage}"
     );
 }
+
+/// A larger training set, as the benchmarks use: 1,000 Latin-hypercube runs, one start
+/// of the search. Before the objective was taken per training point, its gradient at the
+/// central start (|g| ≈ 500) made the first L-BFGS step leave the region where K can be
+/// factored and the search stopped after two factorisations, with a held-out RMSE of
+/// 11 % of the sd. The acceptance level is the 1 % (Harper & Gupta's function,
+/// as above).
+#[test]
+fn borehole_with_a_thousand_runs_is_fitted_not_left_at_the_start() {
+    let mut rng = assay::rng::stream(7, 0);
+    let u_train = assay::design::latin_hypercube(1000, 8, &mut rng);
+    let u_test = assay::design::latin_hypercube(300, 8, &mut rng);
+    let y_train: Vec<f64> = scaled(&u_train).iter().map(|x| borehole(x)).collect();
+    let y_test: Vec<f64> = scaled(&u_test).iter().map(|x| borehole(x)).collect();
+    let n = y_train.len() as f64;
+    let mean = y_train.iter().sum::<f64>() / n;
+    let sd = (y_train.iter().map(|y| (y - mean).powi(2)).sum::<f64>() / (n - 1.0)).sqrt();
+    let y = Array1::from_iter(y_train.iter().map(|v| (v - mean) / sd));
+    let params = FitParams {
+        kernel: Kernel::Matern52,
+        trend: Trend::Constant,
+        bounds: HyperBounds::default(),
+        hyperprior: None,
+        n_starts: 1,
+        max_iters: 200,
+    };
+    let fit = fit_hyperparameters(u_train.view(), y.view(), params, "borehole", &mut rng).unwrap();
+    assert!(
+        fit.n_evaluations > 10,
+        "{} factorisations",
+        fit.n_evaluations
+    );
+    let (m, _) = fit.gp.predict(u_test.view());
+    let sse: f64 = (0..300)
+        .map(|i| (mean + sd * m[i] - y_test[i]).powi(2))
+        .sum();
+    let rmse = (sse / 300.0).sqrt();
+    assert!(
+        rmse < RMSE_FRACTION_MAX * sd,
+        "held-out RMSE {:.3} % of sd",
+        100.0 * rmse / sd
+    );
+}
