@@ -98,6 +98,19 @@ surrogate: {{mean: linear}}
     env.write("study.yaml", &text)
 }
 
+/// Each named parameter's central 95 % interval contains its true value.
+fn assert_covers(p: &Posterior, truths: &[(&str, f64)]) {
+    for &(name, truth) in truths {
+        let s = &p.parameters[name];
+        assert!(
+            s.q025 <= truth && truth <= s.q975,
+            "{name}: [{}, {}] misses {truth}",
+            s.q025,
+            s.q975
+        );
+    }
+}
+
 /// `assay all` on `study`, which must succeed.
 fn run_all(env: &Env, study: &Path) {
     let out = env.assay(["all"]).arg(study).output().unwrap();
@@ -135,15 +148,7 @@ fn exponential_decay_over_temperature_covers_the_truth() {
     let design = env.read("runs/cond/design.yaml");
     assert!(design.contains("- T"), "{design}");
     let p = posterior(&env);
-    for (name, truth) in [("A", a), ("B", b)] {
-        let s = &p.parameters[name];
-        assert!(
-            s.q025 <= truth && truth <= s.q975,
-            "{name}: [{}, {}] misses {truth}",
-            s.q025,
-            s.q975
-        );
-    }
+    assert_covers(&p, &[("A", a), ("B", b)]);
     // The checks report each measurement with its temperature; the report draws the
     // data and bands against it.
     let checks = env.read("runs/cond/checks.yaml");
@@ -307,13 +312,5 @@ fn discrepancy_over_the_conditions() {
         "{header}"
     );
     let p = posterior(&env);
-    for (name, truth) in [("A", a), ("B", b)] {
-        let s = &p.parameters[name];
-        assert!(
-            s.q025 <= truth && truth <= s.q975,
-            "{name}: [{}, {}] misses {truth}",
-            s.q025,
-            s.q975
-        );
-    }
+    assert_covers(&p, &[("A", a), ("B", b)]);
 }

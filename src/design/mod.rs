@@ -163,6 +163,17 @@ pub fn point_id(i: usize) -> String {
     format!("p{:04}", i + 1)
 }
 
+/// The 0-based index the next new point's id continues from: after the largest id
+/// number in the design (or its point count when no id has a number).
+fn next_id_index(design: &Design) -> usize {
+    design
+        .points
+        .iter()
+        .filter_map(|p| id_number(&p.id))
+        .max()
+        .unwrap_or(design.points.len())
+}
+
 /// The number in a point id made by [`point_id`] (`p0031` → 31).
 fn id_number(id: &str) -> Option<usize> {
     id.strip_prefix('p')?.parse().ok()
@@ -347,12 +358,7 @@ pub fn augment(design: &Design, params: &[Parameter], n_add: usize) -> Result<De
             (fill_gaps(old.view(), n_add, &mut rng), Fill::Maximin)
         }
     };
-    let first = design
-        .points
-        .iter()
-        .filter_map(|p| id_number(&p.id))
-        .max()
-        .unwrap_or(design.points.len());
+    let first = next_id_index(design);
     let mut out = design.clone();
     out.points
         .extend(to_points(params, design.space, &unit, first));
@@ -406,12 +412,7 @@ pub fn augment_at_conditions(
         ..design.clone()
     };
     let grown = augment(&inner, params, n_add)?;
-    let first = design
-        .points
-        .iter()
-        .filter_map(|p| id_number(&p.id))
-        .max()
-        .unwrap_or(design.points.len());
+    let first = next_id_index(design);
     let mut out = design.clone();
     for p in &grown.points[inner.points.len()..] {
         for c in conditions {
@@ -475,12 +476,7 @@ pub fn append(
             study: names.join(", "),
         });
     }
-    let first = design
-        .points
-        .iter()
-        .filter_map(|p| id_number(&p.id))
-        .max()
-        .unwrap_or(design.points.len());
+    let first = next_id_index(design);
     let mut out = design.clone();
     for (k, v) in values.iter().enumerate() {
         for (x, p) in v.iter().zip(params) {
