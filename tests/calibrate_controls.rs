@@ -234,8 +234,9 @@ fn linear_in_the_parameters_matches_the_closed_form_posterior() {
 }
 
 /// `design.controls: from_data` runs every parameter point at every field condition
-/// (also the points of `--add`); a field condition outside the control's range is
-/// refused with file and line.
+/// (also the points of `--add`); confirmation runs and refinement, not built for
+/// controls yet, are refused; a field condition outside the control's range is refused
+/// with file and line.
 #[test]
 fn from_data_design_and_conditions_outside_the_range() {
     let env = Env::new();
@@ -274,6 +275,21 @@ fn from_data_design_and_conditions_outside_the_range() {
     assert_eq!(d2.points[10]["T"].as_f64(), Some(10.0));
     assert_eq!(d2.points[11]["T"].as_f64(), Some(20.0));
     assert_ne!(d2.points[10]["A"], d2.points[12]["A"]);
+
+    // Confirmation runs and refinement are refused up front with controls.
+    let text = env.read("study.yaml");
+    let with_checks = env.write(
+        "checks.yaml",
+        &format!("{text}checks: {{confirmation_runs: 2, refine: {{rounds: 1}}}}\n"),
+    );
+    let out = env.assay(["validate"]).arg(&with_checks).output().unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        err.contains("checks.confirmation_runs: confirmation runs are not available yet for studies with `controls`")
+            && err.contains("checks.refine: refinement is not available yet"),
+        "{err}"
+    );
 
     env.write("field.csv", "T,y\n10,1.0\n75,2.0\n");
     let out = env.assay(["validate"]).arg(&study).output().unwrap();

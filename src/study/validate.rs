@@ -927,6 +927,21 @@ pub fn parse(
             );
         }
     }
+    // Confirmation runs would need a condition for each posterior draw; not built yet.
+    if !controls.is_empty() {
+        if spec.checks.confirmation_runs > 0 {
+            c.err(
+                "checks.confirmation_runs",
+                "confirmation runs are not available yet for studies with `controls`: set it to 0 (add runs with `assay design --add`)",
+            );
+        }
+        if spec.checks.refine.is_some() {
+            c.err(
+                "checks.refine",
+                "refinement is not available yet for studies with `controls` (add runs with `assay design --add`)",
+            );
+        }
+    }
     let refine = spec.checks.refine.as_ref().map(|r| {
         if r.rounds == 0 {
             c.err("checks.refine.rounds", "rounds must be at least 1");
