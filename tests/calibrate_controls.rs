@@ -98,6 +98,23 @@ surrogate: {{mean: linear}}
     env.write("study.yaml", &text)
 }
 
+/// The `exp` study (A in [50, 150], B in [0.005, 0.05], 60 runs) with data from `f` at
+/// 25 temperatures; `calibration_extra` is appended to the calibration mapping.
+fn decay_study(env: &Env, f: impl Fn(f64) -> f64, sd: f64, calibration_extra: &str) -> PathBuf {
+    let (t, y) = field_data(f, sd, 7);
+    write_study(
+        env,
+        "exp",
+        "  - name: A\n    range: [50.0, 150.0]\n  - name: B\n    range: [0.005, 0.05]",
+        &t,
+        &y,
+        sd,
+        &format!(
+            "design: {{points: 60, seed: 2}}\ncalibration: {{chains: 4, warmup: 1000, draws: 2000, seed: 5{calibration_extra}}}\n"
+        ),
+    )
+}
+
 /// Each named parameter's central 95 % interval contains its true value.
 fn assert_covers(p: &Posterior, truths: &[(&str, f64)]) {
     for &(name, truth) in truths {
@@ -133,16 +150,7 @@ fn posterior(env: &Env) -> Posterior {
 fn exponential_decay_over_temperature_covers_the_truth() {
     let env = Env::new();
     let (a, b, sd) = (100.0, 0.02, 1.0);
-    let (t, y) = field_data(|t| a * (-b * t).exp(), sd, 7);
-    let study = write_study(
-        &env,
-        "exp",
-        "  - name: A\n    range: [50.0, 150.0]\n  - name: B\n    range: [0.005, 0.05]",
-        &t,
-        &y,
-        sd,
-        "design: {points: 60, seed: 2}\ncalibration: {chains: 4, warmup: 1000, draws: 2000, seed: 5}\n",
-    );
+    let study = decay_study(&env, |t| a * (-b * t).exp(), sd, "");
     run_all(&env, &study);
     // 60 runs, each at its own (T, A, B) of a joint design over the three.
     let design = env.read("runs/cond/design.yaml");
@@ -310,15 +318,11 @@ fn from_data_design_and_conditions_outside_the_range() {
 fn discrepancy_over_the_conditions() {
     let env = Env::new();
     let (a, b, sd) = (100.0, 0.02, 1.0);
-    let (t, y) = field_data(|t| a * (-b * t).exp() + 3.0 * (t / 8.0).sin(), sd, 7);
-    let study = write_study(
+    let study = decay_study(
         &env,
-        "exp",
-        "  - name: A\n    range: [50.0, 150.0]\n  - name: B\n    range: [0.005, 0.05]",
-        &t,
-        &y,
+        |t| a * (-b * t).exp() + 3.0 * (t / 8.0).sin(),
         sd,
-        "design: {points: 60, seed: 2}\ncalibration: {chains: 4, warmup: 1000, draws: 2000, seed: 5, discrepancy: {}}\n",
+        ", discrepancy: {}",
     );
     run_all(&env, &study);
     let samples = env.read("runs/cond/posterior-samples.csv");

@@ -163,6 +163,18 @@ pub fn point_id(i: usize) -> String {
     format!("p{:04}", i + 1)
 }
 
+/// The design's variables must be `params`, by name and in order.
+fn same_names(design: &Design, params: &[Parameter]) -> Result<(), DesignError> {
+    let names: Vec<String> = params.iter().map(|p| p.name.clone()).collect();
+    if names != design.names {
+        return Err(DesignError::ParametersDiffer {
+            design: design.names.join(", "),
+            study: names.join(", "),
+        });
+    }
+    Ok(())
+}
+
 /// The 0-based index the next new point's id continues from: after the largest id
 /// number in the design (or its point count when no id has a number).
 fn next_id_index(design: &Design) -> usize {
@@ -321,13 +333,7 @@ pub fn augment(design: &Design, params: &[Parameter], n_add: usize) -> Result<De
     if n_add == 0 {
         return Err(DesignError::NothingToAdd);
     }
-    let names: Vec<String> = params.iter().map(|p| p.name.clone()).collect();
-    if names != design.names {
-        return Err(DesignError::ParametersDiffer {
-            design: design.names.join(", "),
-            study: names.join(", "),
-        });
-    }
+    same_names(design, params)?;
     for pt in &design.points {
         for (v, p) in pt.values.iter().zip(params) {
             if !(p.lo..=p.hi).contains(v) {
@@ -469,13 +475,7 @@ pub fn append(
     if values.is_empty() {
         return Err(DesignError::NothingToAdd);
     }
-    let names: Vec<String> = params.iter().map(|p| p.name.clone()).collect();
-    if names != design.names {
-        return Err(DesignError::ParametersDiffer {
-            design: design.names.join(", "),
-            study: names.join(", "),
-        });
-    }
+    same_names(design, params)?;
     let first = next_id_index(design);
     let mut out = design.clone();
     for (k, v) in values.iter().enumerate() {
@@ -527,13 +527,7 @@ pub fn spread_among(
     if n == 0 || n > draws.len() {
         return Err(DesignError::NothingToAdd);
     }
-    let names: Vec<String> = params.iter().map(|p| p.name.clone()).collect();
-    if names != design.names {
-        return Err(DesignError::ParametersDiffer {
-            design: design.names.join(", "),
-            study: names.join(", "),
-        });
-    }
+    same_names(design, params)?;
     let candidates = Array2::from_shape_fn((draws.len(), params.len()), |(i, j)| {
         to_unit(&params[j], design.space, draws[i][j])
     });

@@ -476,25 +476,9 @@ pub fn parse(
     let mut seen = BTreeSet::new();
     for (i, p) in spec.parameters.iter().enumerate() {
         let key = format!("parameters[{i}]");
-        if !placeholder::is_identifier(&p.name) {
-            c.err(
-                format!("{key}.name"),
-                format!(
-                    "`{}` is not a valid parameter name (expected [A-Za-z_][A-Za-z0-9_]*)",
-                    p.name.escape_debug()
-                ),
-            );
-        } else if RESERVED.contains(&p.name.as_str()) {
-            c.err(
-                format!("{key}.name"),
-                format!("`{}` is reserved for the run folder placeholders", p.name),
-            );
-        } else if !seen.insert(p.name.clone()) {
-            c.err(
-                format!("{key}.name"),
-                format!("duplicate parameter name `{}`", p.name),
-            );
-        }
+        check_variable_name(&mut c, &key, "parameter", &p.name, &mut seen, || {
+            format!("duplicate parameter name `{}`", p.name)
+        });
         let [lo, hi] = p.range;
         check_range(&mut c, &key, lo, hi);
         let prior = match p.prior {
@@ -549,28 +533,12 @@ pub fn parse(
     let mut controls = Vec::new();
     for (i, p) in spec.controls.iter().enumerate() {
         let key = format!("controls[{i}]");
-        if !placeholder::is_identifier(&p.name) {
-            c.err(
-                format!("{key}.name"),
-                format!(
-                    "`{}` is not a valid control name (expected [A-Za-z_][A-Za-z0-9_]*)",
-                    p.name
-                ),
-            );
-        } else if RESERVED.contains(&p.name.as_str()) {
-            c.err(
-                format!("{key}.name"),
-                format!("`{}` is reserved for the run folder placeholders", p.name),
-            );
-        } else if !seen.insert(p.name.clone()) {
-            c.err(
-                format!("{key}.name"),
-                format!(
-                    "control name `{}` is already a parameter or another control",
-                    p.name
-                ),
-            );
-        }
+        check_variable_name(&mut c, &key, "control", &p.name, &mut seen, || {
+            format!(
+                "control name `{}` is already a parameter or another control",
+                p.name
+            )
+        });
         let [lo, hi] = p.range;
         check_range(&mut c, &key, lo, hi);
         controls.push(Parameter {
@@ -1121,6 +1089,35 @@ fn check_discrepancy(
         sd: d.sd,
         length_scale: d.length_scale,
         experiments,
+    }
+}
+
+/// `{key}.name` of a parameter or control (`kind`): an identifier, not a run
+/// placeholder, not seen before (`duplicate` says so otherwise). Invalid names are shown
+/// escaped, so control characters stay visible.
+fn check_variable_name(
+    c: &mut Checker<'_>,
+    key: &str,
+    kind: &str,
+    name: &str,
+    seen: &mut BTreeSet<String>,
+    duplicate: impl FnOnce() -> String,
+) {
+    if !placeholder::is_identifier(name) {
+        c.err(
+            format!("{key}.name"),
+            format!(
+                "`{}` is not a valid {kind} name (expected [A-Za-z_][A-Za-z0-9_]*)",
+                name.escape_debug()
+            ),
+        );
+    } else if RESERVED.contains(&name) {
+        c.err(
+            format!("{key}.name"),
+            format!("`{name}` is reserved for the run folder placeholders"),
+        );
+    } else if !seen.insert(name.to_string()) {
+        c.err(format!("{key}.name"), duplicate());
     }
 }
 
