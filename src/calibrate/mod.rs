@@ -11,6 +11,7 @@ mod diagnostics;
 pub mod discrepancy;
 pub mod ensemble;
 mod likelihood;
+pub mod nuts;
 mod posterior;
 mod prior;
 mod sampler;
@@ -22,6 +23,7 @@ pub use diagnostics::{
 pub use discrepancy::{Discrepancy, Hyper, HyperKind};
 pub use likelihood::{
     ln_normal_factored_low_rank, ln_normal_low_rank, Emulator, ExperimentLikelihood,
+    LikelihoodGradient,
 };
 pub use posterior::LogPosterior;
 pub use prior::{ln_prior, InverseGamma, MvnPrior, Transform};
