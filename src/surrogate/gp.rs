@@ -113,6 +113,9 @@ pub struct Gp {
     pub jitter: f64,
     /// 1/ℓ_d², kept for prediction.
     inv_l2: Vec<f64>,
+    /// Lᵀ column-major, made at the first prediction with a gradient (the second
+    /// triangular solve; LAPACK would copy a transposed view at every call).
+    l_t: std::sync::OnceLock<Array2<f64>>,
 }
 
 fn hyper_inv_l2(h: &Hyper) -> Vec<f64> {
@@ -252,6 +255,7 @@ impl Gp {
             ln_marginal_likelihood: lml,
             jitter,
             inv_l2: hyper_inv_l2(&hyper_copy),
+            l_t: std::sync::OnceLock::new(),
         })
     }
 
@@ -483,9 +487,12 @@ impl Gp {
             .l
             .solve_triangular(UPLO::Lower, Diag::NonUnit, &k)
             .expect("triangular solve with a Cholesky factor of positive diagonal");
-        let q = self
-            .l
-            .t()
+        let l_t = self.l_t.get_or_init(|| {
+            let mut u = Array2::zeros(self.l.raw_dim().f());
+            u.assign(&self.l.t());
+            u
+        });
+        let q = l_t
             .solve_triangular(UPLO::Upper, Diag::NonUnit, &v)
             .expect("triangular solve with a Cholesky factor of positive diagonal");
         let mean = h.dot(&self.beta) + k.dot(&self.alpha);
