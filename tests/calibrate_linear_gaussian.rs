@@ -207,8 +207,8 @@ const DELTA_ELL: f64 = 0.3;
 /// 2001): the measurements' covariance is Σ = σ²I + K_δ, K_δ = s² exp(−(x − x′)²/(2ℓ²))
 /// (replicates at one x share δ), and the posterior is the linear-Gaussian one with that
 /// Σ (Bishop 2006, eqs. 2.116–2.117 with L = Σ⁻¹).
-#[test]
-fn fixed_discrepancy_matches_the_linear_gaussian_posterior_with_its_covariance() {
+/// The likelihood with the fixed discrepancy, and the exact posterior (m, cov).
+fn fixed_discrepancy_case() -> (ExperimentLikelihood, Array1<f64>, Array2<f64>) {
     let values = field_data();
     let (m, cov) = exact(&values, |xa, xb, same| {
         DELTA_SD * DELTA_SD * (-0.5 * ((xa - xb) / DELTA_ELL).powi(2)).exp()
@@ -225,9 +225,15 @@ fn fixed_discrepancy_matches_the_linear_gaussian_posterior_with_its_covariance()
             at: None,
         }],
     };
-    let names: Vec<String> = ["t1", "t2", "t3"].iter().map(|s| s.to_string()).collect();
     let sds: Vec<Vec<f64>> = values.iter().map(|v| vec![SIGMA; v.len()]).collect();
     let lik = ExperimentLikelihood::from_values("curve", &values, &sds).with_discrepancy(disc);
+    (lik, m, cov)
+}
+
+#[test]
+fn fixed_discrepancy_matches_the_linear_gaussian_posterior_with_its_covariance() {
+    let (lik, m, cov) = fixed_discrepancy_case();
+    let names: Vec<String> = ["t1", "t2", "t3"].iter().map(|s| s.to_string()).collect();
     let s = assert_matches(
         lik,
         &names,
@@ -271,24 +277,7 @@ fn nuts_matches_the_linear_gaussian_posterior() {
 
 #[test]
 fn nuts_matches_the_linear_gaussian_posterior_with_a_fixed_discrepancy() {
-    let values = field_data();
-    let (m, cov) = exact(&values, |xa, xb, same| {
-        DELTA_SD * DELTA_SD * (-0.5 * ((xa - xb) / DELTA_ELL).powi(2)).exp()
-            + if same { SIGMA * SIGMA } else { 0.0 }
-    });
-    let disc = Discrepancy {
-        kernel: Kernel::SquaredExponential,
-        blocks: vec![DiscrepancyBlock {
-            quantity: "y".into(),
-            index: (0..XS.len()).collect(),
-            x: Some(XS.to_vec()),
-            sd: Hyper::Fixed(DELTA_SD),
-            length_scale: Some(Hyper::Fixed(DELTA_ELL)),
-            at: None,
-        }],
-    };
+    let (lik, m, cov) = fixed_discrepancy_case();
     let names: Vec<String> = ["t1", "t2", "t3"].iter().map(|s| s.to_string()).collect();
-    let sds: Vec<Vec<f64>> = values.iter().map(|v| vec![SIGMA; v.len()]).collect();
-    let lik = ExperimentLikelihood::from_values("curve", &values, &sds).with_discrepancy(disc);
     assert_matches(lik, &names, &m, &cov, nuts(29));
 }

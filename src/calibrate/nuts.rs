@@ -35,15 +35,13 @@
 
 use super::posterior::LogPosterior;
 use super::sampler::{
-    covariance, initial_point, next_target, rescue_stranded, Chain, Restart, SamplerParams,
-    Termination,
+    covariance, initial_point, run_chains, Chain, ChainState, Restart, SamplerParams, Termination,
 };
 use crate::progress::Observer;
 use ndarray::Array2;
 use ndarray_linalg::{Cholesky, UPLO};
 use rand::Rng;
 use rand_distr::StandardNormal;
-use rayon::prelude::*;
 use std::sync::atomic::{AtomicBool, Ordering};
 
 /// Mean acceptance statistic the step size is tuned towards.
@@ -553,41 +551,36 @@ pub fn sample(
         post.has_gradient(),
         "the No-U-Turn sampler needs a gradient"
     );
-    let mut total = params.warmup + params.draws;
-    observer.start("MCMC", (params.chains * total) as u64);
-    let half = params.warmup / 2;
-    let mut states: Vec<NutsChain> = (0..params.chains)
-        .into_par_iter()
-        .map(|i| {
-            let mut c = NutsChain::new(post, params.seed, i, params.chains);
-            c.advance(post, params.warmup, half, stop, observer);
-            c
-        })
-        .collect();
-    if half > 0 {
-        rescue_stranded(&mut states, post.dim(), |c| c.lp, NutsChain::adopt);
+    run_chains::<NutsChain>(post, params, stop, observer)
+}
+
+impl ChainState for NutsChain {
+    fn start(post: &LogPosterior<'_>, seed: u64, index: usize, n_chains: usize) -> Self {
+        NutsChain::new(post, seed, index, n_chains)
     }
-    states
-        .par_iter_mut()
-        .for_each(|c| c.advance(post, params.warmup, total, stop, observer));
-    loop {
-        let chains: Vec<Chain> = states.iter().map(|s| s.chain.clone()).collect();
-        let Some(target) = next_target(params, total - params.warmup, &chains) else {
-            break;
-        };
-        let extra = target + params.warmup - total;
-        observer.note(&format!(
-            "not converged after {} draws per chain: {extra} more per chain",
-            total - params.warmup
-        ));
-        observer.start("MCMC more", (params.chains * extra) as u64);
-        total += extra;
-        states
-            .par_iter_mut()
-            .for_each(|c| c.advance(post, params.warmup, total, stop, observer));
+
+    fn advance(
+        &mut self,
+        post: &LogPosterior<'_>,
+        warmup: usize,
+        until: usize,
+        stop: &AtomicBool,
+        observer: &dyn Observer,
+    ) {
+        NutsChain::advance(self, post, warmup, until, stop, observer);
     }
-    observer.finish();
-    states.into_iter().map(|s| s.chain).collect()
+
+    fn lp(&self) -> f64 {
+        self.lp
+    }
+
+    fn adopt(&mut self, donor: &Self, gap: f64) {
+        NutsChain::adopt(self, donor, gap);
+    }
+
+    fn chain(&self) -> &Chain {
+        &self.chain
+    }
 }
 
 #[cfg(test)]

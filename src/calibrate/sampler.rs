@@ -448,7 +448,7 @@ pub fn sample(
 ) -> Vec<Chain> {
     crate::init_blas();
     match params.kind {
-        SamplerChoice::AdaptiveMetropolis => sample_am(post, params, stop, observer),
+        SamplerChoice::AdaptiveMetropolis => run_chains::<AmChain>(post, params, stop, observer),
         SamplerChoice::Ensemble => super::ensemble::sample(post, params, stop, observer),
         SamplerChoice::Nuts => super::nuts::sample(post, params, stop, observer),
     }
@@ -498,7 +498,30 @@ pub(crate) fn rescue_stranded<T: Clone>(
     }
 }
 
-fn sample_am(
+/// A chain of a sampler that runs chains independently (adaptive Metropolis, NUTS).
+pub(crate) trait ChainState: Clone + Send {
+    fn start(post: &LogPosterior<'_>, seed: u64, index: usize, n_chains: usize) -> Self;
+    /// Run until `until` iterations (warm-up included) are done, or a stop request.
+    fn advance(
+        &mut self,
+        post: &LogPosterior<'_>,
+        warmup: usize,
+        until: usize,
+        stop: &AtomicBool,
+        observer: &dyn Observer,
+    );
+    /// The current log density.
+    fn lp(&self) -> f64;
+    /// Take over `donor`'s position and tuning (not its random stream or draws).
+    fn adopt(&mut self, donor: &Self, gap: f64);
+    fn chain(&self) -> &Chain;
+}
+
+/// Run `params.chains` chains of type `T` in parallel: half the warm-up, the rescue of
+/// stranded chains, the rest, then extensions while `until_converged` asks for them.
+/// Chain i uses random stream i of `params.seed`, so the draws do not depend on the
+/// number of threads.
+pub(crate) fn run_chains<T: ChainState>(
     post: &LogPosterior<'_>,
     params: &SamplerParams,
     stop: &AtomicBool,
@@ -507,22 +530,22 @@ fn sample_am(
     let mut total = params.warmup + params.draws;
     observer.start("MCMC", (params.chains * total) as u64);
     let half = params.warmup / 2;
-    let mut states: Vec<AmChain> = (0..params.chains)
+    let mut states: Vec<T> = (0..params.chains)
         .into_par_iter()
         .map(|i| {
-            let mut c = AmChain::new(post, params.seed, i, params.chains);
+            let mut c = T::start(post, params.seed, i, params.chains);
             c.advance(post, params.warmup, half, stop, observer);
             c
         })
         .collect();
     if half > 0 {
-        rescue_stranded(&mut states, post.dim(), |c| c.lp, AmChain::adopt);
+        rescue_stranded(&mut states, post.dim(), T::lp, T::adopt);
     }
     states
         .par_iter_mut()
         .for_each(|c| c.advance(post, params.warmup, total, stop, observer));
     loop {
-        let chains: Vec<Chain> = states.iter().map(|s| s.chain.clone()).collect();
+        let chains: Vec<Chain> = states.iter().map(|s| s.chain().clone()).collect();
         let Some(target) = next_target(params, total - params.warmup, &chains) else {
             break;
         };
@@ -538,5 +561,34 @@ fn sample_am(
             .for_each(|c| c.advance(post, params.warmup, total, stop, observer));
     }
     observer.finish();
-    states.into_iter().map(|s| s.chain).collect()
+    states.into_iter().map(|s| s.chain().clone()).collect()
+}
+
+impl ChainState for AmChain {
+    fn start(post: &LogPosterior<'_>, seed: u64, index: usize, n_chains: usize) -> Self {
+        AmChain::new(post, seed, index, n_chains)
+    }
+
+    fn advance(
+        &mut self,
+        post: &LogPosterior<'_>,
+        warmup: usize,
+        until: usize,
+        stop: &AtomicBool,
+        observer: &dyn Observer,
+    ) {
+        AmChain::advance(self, post, warmup, until, stop, observer);
+    }
+
+    fn lp(&self) -> f64 {
+        self.lp
+    }
+
+    fn adopt(&mut self, donor: &Self, gap: f64) {
+        AmChain::adopt(self, donor, gap);
+    }
+
+    fn chain(&self) -> &Chain {
+        &self.chain
+    }
 }
