@@ -222,32 +222,6 @@ struct Trajectory {
 }
 
 impl NutsChain {
-    fn new(post: &LogPosterior<'_>, seed: u64, index: usize, n_chains: usize) -> Self {
-        let d = post.dim();
-        let mut rng = crate::rng::stream(seed, index as u64);
-        let q = post.to_unconstrained(&initial_point(post, &mut rng, index, n_chains));
-        let (lp, grad) = post
-            .ln_density_and_gradient(&q)
-            .expect("the sampler is only used with a gradient");
-        let mut c = Self {
-            rng,
-            q,
-            lp,
-            grad,
-            eps: 1.0,
-            metric: Metric::unit(d),
-            dual: DualAveraging::new(1.0),
-            window: Vec::new(),
-            window_len: 25,
-            next_window_end: 0,
-            t: 0,
-            accept_sum: 0.0,
-            chain: Chain::new(index),
-        };
-        c.find_step_size(post);
-        c
-    }
-
     fn eval(post: &LogPosterior<'_>, q: &[f64]) -> (f64, Vec<f64>) {
         let (lp, g) = post
             .ln_density_and_gradient(q)
@@ -440,21 +414,71 @@ impl NutsChain {
         )
     }
 
-    /// Take over `donor`'s position and tuning (not its random stream or draws).
-    fn adopt(&mut self, donor: &NutsChain, gap: f64) {
-        self.q.clone_from(&donor.q);
-        self.lp = donor.lp;
-        self.grad.clone_from(&donor.grad);
-        self.eps = donor.eps;
-        self.metric = donor.metric.clone();
-        self.dual = donor.dual.clone();
-        self.window.clone_from(&donor.window);
-        self.window_len = donor.window_len;
-        self.next_window_end = donor.next_window_end;
-        self.chain.restarted_from = Some(Restart {
-            from: donor.chain.index,
-            gap,
+    /// Set the metric to the shrunk covariance of the window's draws and start the step
+    /// size's adaptation again from a fresh first guess.
+    fn update_metric(&mut self, post: &LogPosterior<'_>) {
+        let d = self.q.len();
+        let n = self.window.len() as f64;
+        if self.window.len() < 3 {
+            return;
+        }
+        let c = covariance(&self.window, d);
+        let shrunk = Array2::from_shape_fn((d, d), |(a, b)| {
+            n / (n + 5.0) * c[[a, b]] + if a == b { 1e-3 * 5.0 / (n + 5.0) } else { 0.0 }
         });
+        if let Ok(l) = shrunk.cholesky(UPLO::Lower) {
+            self.metric = Metric {
+                inv_mass: shrunk,
+                chol: l,
+            };
+            self.find_step_size(post);
+        }
+    }
+}
+
+/// Run the No-U-Turn sampler, chains in parallel; chain i uses random stream i of
+/// `params.seed`, so the draws do not depend on the number of threads.
+///
+/// # Panics
+/// If the posterior has no gradient ([`LogPosterior::has_gradient`]); callers check.
+pub fn sample(
+    post: &LogPosterior<'_>,
+    params: &SamplerParams,
+    stop: &AtomicBool,
+    observer: &dyn Observer,
+) -> Vec<Chain> {
+    assert!(
+        post.has_gradient(),
+        "the No-U-Turn sampler needs a gradient"
+    );
+    run_chains::<NutsChain>(post, params, stop, observer)
+}
+
+impl ChainState for NutsChain {
+    fn start(post: &LogPosterior<'_>, seed: u64, index: usize, n_chains: usize) -> Self {
+        let d = post.dim();
+        let mut rng = crate::rng::stream(seed, index as u64);
+        let q = post.to_unconstrained(&initial_point(post, &mut rng, index, n_chains));
+        let (lp, grad) = post
+            .ln_density_and_gradient(&q)
+            .expect("the sampler is only used with a gradient");
+        let mut c = Self {
+            rng,
+            q,
+            lp,
+            grad,
+            eps: 1.0,
+            metric: Metric::unit(d),
+            dual: DualAveraging::new(1.0),
+            window: Vec::new(),
+            window_len: 25,
+            next_window_end: 0,
+            t: 0,
+            accept_sum: 0.0,
+            chain: Chain::new(index),
+        };
+        c.find_step_size(post);
+        c
     }
 
     /// Run until `until` iterations (warm-up included) are done, or a stop request.
@@ -514,68 +538,25 @@ impl NutsChain {
         self.chain.step_scale = self.eps;
     }
 
-    /// Set the metric to the shrunk covariance of the window's draws and start the step
-    /// size's adaptation again from a fresh first guess.
-    fn update_metric(&mut self, post: &LogPosterior<'_>) {
-        let d = self.q.len();
-        let n = self.window.len() as f64;
-        if self.window.len() < 3 {
-            return;
-        }
-        let c = covariance(&self.window, d);
-        let shrunk = Array2::from_shape_fn((d, d), |(a, b)| {
-            n / (n + 5.0) * c[[a, b]] + if a == b { 1e-3 * 5.0 / (n + 5.0) } else { 0.0 }
-        });
-        if let Ok(l) = shrunk.cholesky(UPLO::Lower) {
-            self.metric = Metric {
-                inv_mass: shrunk,
-                chol: l,
-            };
-            self.find_step_size(post);
-        }
-    }
-}
-
-/// Run the No-U-Turn sampler, chains in parallel; chain i uses random stream i of
-/// `params.seed`, so the draws do not depend on the number of threads.
-///
-/// # Panics
-/// If the posterior has no gradient ([`LogPosterior::has_gradient`]); callers check.
-pub fn sample(
-    post: &LogPosterior<'_>,
-    params: &SamplerParams,
-    stop: &AtomicBool,
-    observer: &dyn Observer,
-) -> Vec<Chain> {
-    assert!(
-        post.has_gradient(),
-        "the No-U-Turn sampler needs a gradient"
-    );
-    run_chains::<NutsChain>(post, params, stop, observer)
-}
-
-impl ChainState for NutsChain {
-    fn start(post: &LogPosterior<'_>, seed: u64, index: usize, n_chains: usize) -> Self {
-        NutsChain::new(post, seed, index, n_chains)
-    }
-
-    fn advance(
-        &mut self,
-        post: &LogPosterior<'_>,
-        warmup: usize,
-        until: usize,
-        stop: &AtomicBool,
-        observer: &dyn Observer,
-    ) {
-        NutsChain::advance(self, post, warmup, until, stop, observer);
-    }
-
     fn lp(&self) -> f64 {
         self.lp
     }
 
-    fn adopt(&mut self, donor: &Self, gap: f64) {
-        NutsChain::adopt(self, donor, gap);
+    /// Take over `donor`'s position and tuning (not its random stream or draws).
+    fn adopt(&mut self, donor: &NutsChain, gap: f64) {
+        self.q.clone_from(&donor.q);
+        self.lp = donor.lp;
+        self.grad.clone_from(&donor.grad);
+        self.eps = donor.eps;
+        self.metric = donor.metric.clone();
+        self.dual = donor.dual.clone();
+        self.window.clone_from(&donor.window);
+        self.window_len = donor.window_len;
+        self.next_window_end = donor.next_window_end;
+        self.chain.restarted_from = Some(Restart {
+            from: donor.chain.index,
+            gap,
+        });
     }
 
     fn chain(&self) -> &Chain {

@@ -277,102 +277,6 @@ struct AmChain {
 }
 
 impl AmChain {
-    /// Take over `donor`'s position, density and tuning (not its random stream or draws).
-    fn adopt(&mut self, donor: &AmChain, gap: f64) {
-        self.z.clone_from(&donor.z);
-        self.lp = donor.lp;
-        self.chol.clone_from(&donor.chol);
-        self.ln_scale = donor.ln_scale;
-        self.window.clone_from(&donor.window);
-        self.window_len = donor.window_len;
-        self.window_start = donor.window_start;
-        self.window_accepted = donor.window_accepted;
-        self.next_window_end = donor.next_window_end;
-        self.chain.restarted_from = Some(Restart {
-            from: donor.chain.index,
-            gap,
-        });
-    }
-
-    fn new(post: &LogPosterior<'_>, seed: u64, index: usize, n_chains: usize) -> Self {
-        let d = post.dim();
-        let mut rng = crate::rng::stream(seed, index as u64);
-        let z = post.to_unconstrained(&initial_point(post, &mut rng, index, n_chains));
-        let lp = post.ln_density(&z);
-        Self {
-            rng,
-            z,
-            lp,
-            chol: Array2::<f64>::eye(d) * 0.1,
-            ln_scale: (2.38 / (d as f64).sqrt()).ln(),
-            window: Vec::new(),
-            window_len: FIRST_WINDOW,
-            window_start: 0,
-            window_accepted: 0,
-            next_window_end: FIRST_WINDOW,
-            t: 0,
-            accepted: 0,
-            chain: Chain::new(index),
-        }
-    }
-
-    /// Run until `until` iterations (warm-up included) are done, or a stop request.
-    fn advance(
-        &mut self,
-        post: &LogPosterior<'_>,
-        warmup: usize,
-        until: usize,
-        stop: &AtomicBool,
-        observer: &dyn Observer,
-    ) {
-        let d = post.dim();
-        let mut eps = vec![0.0; d];
-        while self.t < until {
-            let t = self.t;
-            if stop.load(Ordering::Relaxed) {
-                self.chain.termination = Termination::Interrupted;
-                break;
-            }
-            for e in eps.iter_mut() {
-                *e = self.rng.sample(StandardNormal);
-            }
-            let scale = self.ln_scale.exp();
-            let chol = &self.chol;
-            let z = &self.z;
-            let proposal: Vec<f64> = (0..d)
-                .map(|a| z[a] + scale * (0..=a).map(|b| chol[[a, b]] * eps[b]).sum::<f64>())
-                .collect();
-            let lp_new = post.ln_density(&proposal);
-            let ln_ratio = lp_new - self.lp;
-            let accept_prob = if ln_ratio.is_nan() {
-                0.0
-            } else {
-                ln_ratio.min(0.0).exp()
-            };
-            let u: f64 = self.rng.gen();
-            let accept = u < accept_prob;
-            if accept {
-                self.z = proposal;
-                self.lp = lp_new;
-            }
-            if t < warmup {
-                self.tune(t, warmup, accept, accept_prob, d);
-            } else {
-                if accept {
-                    self.accepted += 1;
-                }
-                self.chain.keep(post, &self.z, self.lp);
-            }
-            self.t += 1;
-            if self.t % 100 == 0 {
-                observer.advance(100, "");
-            }
-        }
-        let kept = self.chain.theta.len().max(1);
-        self.chain.acceptance_rate = self.accepted as f64 / kept as f64;
-        self.chain.step_scale = self.ln_scale.exp();
-    }
-
     /// Warm-up: Robbins–Monro on the scale, covariance at the end of each window.
     fn tune(&mut self, t: usize, warmup: usize, accept: bool, accept_prob: f64, d: usize) {
         // The step size restarts with each window so a badly scaled start is corrected
@@ -566,9 +470,28 @@ pub(crate) fn run_chains<T: ChainState>(
 
 impl ChainState for AmChain {
     fn start(post: &LogPosterior<'_>, seed: u64, index: usize, n_chains: usize) -> Self {
-        AmChain::new(post, seed, index, n_chains)
+        let d = post.dim();
+        let mut rng = crate::rng::stream(seed, index as u64);
+        let z = post.to_unconstrained(&initial_point(post, &mut rng, index, n_chains));
+        let lp = post.ln_density(&z);
+        Self {
+            rng,
+            z,
+            lp,
+            chol: Array2::<f64>::eye(d) * 0.1,
+            ln_scale: (2.38 / (d as f64).sqrt()).ln(),
+            window: Vec::new(),
+            window_len: FIRST_WINDOW,
+            window_start: 0,
+            window_accepted: 0,
+            next_window_end: FIRST_WINDOW,
+            t: 0,
+            accepted: 0,
+            chain: Chain::new(index),
+        }
     }
 
+    /// Run until `until` iterations (warm-up included) are done, or a stop request.
     fn advance(
         &mut self,
         post: &LogPosterior<'_>,
@@ -577,15 +500,73 @@ impl ChainState for AmChain {
         stop: &AtomicBool,
         observer: &dyn Observer,
     ) {
-        AmChain::advance(self, post, warmup, until, stop, observer);
+        let d = post.dim();
+        let mut eps = vec![0.0; d];
+        while self.t < until {
+            let t = self.t;
+            if stop.load(Ordering::Relaxed) {
+                self.chain.termination = Termination::Interrupted;
+                break;
+            }
+            for e in eps.iter_mut() {
+                *e = self.rng.sample(StandardNormal);
+            }
+            let scale = self.ln_scale.exp();
+            let chol = &self.chol;
+            let z = &self.z;
+            let proposal: Vec<f64> = (0..d)
+                .map(|a| z[a] + scale * (0..=a).map(|b| chol[[a, b]] * eps[b]).sum::<f64>())
+                .collect();
+            let lp_new = post.ln_density(&proposal);
+            let ln_ratio = lp_new - self.lp;
+            let accept_prob = if ln_ratio.is_nan() {
+                0.0
+            } else {
+                ln_ratio.min(0.0).exp()
+            };
+            let u: f64 = self.rng.gen();
+            let accept = u < accept_prob;
+            if accept {
+                self.z = proposal;
+                self.lp = lp_new;
+            }
+            if t < warmup {
+                self.tune(t, warmup, accept, accept_prob, d);
+            } else {
+                if accept {
+                    self.accepted += 1;
+                }
+                self.chain.keep(post, &self.z, self.lp);
+            }
+            self.t += 1;
+            if self.t % 100 == 0 {
+                observer.advance(100, "");
+            }
+        }
+        let kept = self.chain.theta.len().max(1);
+        self.chain.acceptance_rate = self.accepted as f64 / kept as f64;
+        self.chain.step_scale = self.ln_scale.exp();
     }
 
     fn lp(&self) -> f64 {
         self.lp
     }
 
-    fn adopt(&mut self, donor: &Self, gap: f64) {
-        AmChain::adopt(self, donor, gap);
+    /// Take over `donor`'s position, density and tuning (not its random stream or draws).
+    fn adopt(&mut self, donor: &AmChain, gap: f64) {
+        self.z.clone_from(&donor.z);
+        self.lp = donor.lp;
+        self.chol.clone_from(&donor.chol);
+        self.ln_scale = donor.ln_scale;
+        self.window.clone_from(&donor.window);
+        self.window_len = donor.window_len;
+        self.window_start = donor.window_start;
+        self.window_accepted = donor.window_accepted;
+        self.next_window_end = donor.next_window_end;
+        self.chain.restarted_from = Some(Restart {
+            from: donor.chain.index,
+            gap,
+        });
     }
 
     fn chain(&self) -> &Chain {
