@@ -12,10 +12,12 @@ use assay::calibrate::{
     Discrepancy, Emulator, ExperimentLikelihood, Hyper as DHyper, InverseGamma, LogPosterior,
     MvnPrior,
 };
-use assay::runs::{ExperimentRuns, RunSet};
+mod common;
+
 use assay::study::{Parameter, Prior, SurrogateParams};
 use assay::surrogate::{fit_surrogate, ExperimentModel, Gp, Hyper, Kernel, Trend};
-use ndarray::{Array1, Array2};
+use common::curve::{curve, curve_runs, inputs, STATIONS};
+use ndarray::Array1;
 
 /// Central differences of step 1e-5 on these O(1) functions: truncation O(h²f‴) ≈ 1e-10,
 /// round-off O(εf/h) ≈ 1e-11.
@@ -24,11 +26,6 @@ const FD_RTOL: f64 = 1e-6;
 
 fn close(a: f64, b: f64, rtol: f64) -> bool {
     (a - b).abs() <= rtol * a.abs().max(b.abs()).max(1.0)
-}
-
-fn inputs(n: usize, d: usize, seed: u64) -> Array2<f64> {
-    let mut rng = assay::rng::stream(seed, 0);
-    assay::design::latin_hypercube(n, d, &mut rng)
 }
 
 #[test]
@@ -85,12 +82,6 @@ fn gp_mean_and_variance_gradients_match_finite_differences() {
     }
 }
 
-fn curve(theta: &[f64], t: f64) -> f64 {
-    theta[0] * t + (theta[1] * t).sin() + 0.1 * theta[0] * theta[1] * t * t
-}
-
-const STATIONS: [f64; 6] = [0.2, 0.5, 0.9, 1.4, 2.0, 2.6];
-
 /// A surrogate of the curve fitted to `n` runs, and the parameters (a with a normal
 /// prior, w lognormal).
 fn surrogate(n: usize, seed: u64) -> (ExperimentModel, Vec<Parameter>) {
@@ -113,28 +104,7 @@ fn surrogate(n: usize, seed: u64) -> (ExperimentModel, Vec<Parameter>) {
             },
         },
     ];
-    let u = inputs(n, 2, seed);
-    let theta: Vec<Vec<f64>> = u
-        .rows()
-        .into_iter()
-        .map(|r| vec![1.0 + 2.0 * r[0], 0.5 + r[1]])
-        .collect();
-    let outputs: Vec<Vec<f64>> = theta
-        .iter()
-        .map(|t| STATIONS.iter().map(|s| curve(t, *s)).collect())
-        .collect();
-    let er = ExperimentRuns {
-        experiment: "bar".into(),
-        point_ids: (1..=n).map(|i| format!("p{i:04}")).collect(),
-        inputs: theta,
-        outputs,
-        value_names: STATIONS.iter().map(|s| format!("y@{s}")).collect(),
-        record_sha256: vec![String::new(); n],
-        output_sha256: vec![None; n],
-    };
-    let set = RunSet {
-        experiments: vec![er],
-    };
+    let set = curve_runs(n, seed, &params, "bar");
     let settings = SurrogateParams {
         variance_kept: 0.9999,
         ..SurrogateParams::default()

@@ -3,12 +3,15 @@
 //! objective's gradient, the holdout choice, the low-rank prediction and the record
 //! round trip.
 
-use assay::runs::{ExperimentRuns, RunSet};
+mod common;
+
+use assay::runs::RunSet;
 use assay::study::{HyperpriorChoice, Parameter, Prior, SurrogateParams};
 use assay::surrogate::{
     fit_surrogate, objective, pick_holdout, FitParams, Gp, Hyper, HyperBounds, Kernel,
     LengthScalePrior, SurrogateBody, Trend,
 };
+use common::curve::{curve_runs, inputs, STATIONS};
 use ndarray::{Array1, Array2};
 
 /// Central differences with step h have truncation error O(h²·f‴) ≈ 1e-10 and
@@ -24,11 +27,6 @@ const FD_STEP_FITTED: f64 = 1e-4;
 
 fn close(a: f64, b: f64) -> bool {
     (a - b).abs() <= FD_RTOL * a.abs().max(b.abs()).max(1.0)
-}
-
-fn inputs(n: usize, d: usize, seed: u64) -> Array2<f64> {
-    let mut rng = assay::rng::stream(seed, 0);
-    assay::design::latin_hypercube(n, d, &mut rng)
 }
 
 #[test]
@@ -78,12 +76,6 @@ fn mean_gradient_matches_finite_differences_for_every_kernel_and_trend() {
     }
 }
 
-fn curve(theta: &[f64], t: f64) -> f64 {
-    theta[0] * t + (theta[1] * t).sin() + 0.1 * theta[0] * theta[1] * t * t
-}
-
-const STATIONS: [f64; 6] = [0.2, 0.5, 0.9, 1.4, 2.0, 2.6];
-
 fn runs(n: usize, seed: u64) -> (RunSet, Vec<Parameter>) {
     let params = vec![
         Parameter {
@@ -101,31 +93,7 @@ fn runs(n: usize, seed: u64) -> (RunSet, Vec<Parameter>) {
             prior: Prior::Uniform,
         },
     ];
-    let u = inputs(n, 2, seed);
-    let theta: Vec<Vec<f64>> = u
-        .rows()
-        .into_iter()
-        .map(|r| vec![1.0 + 2.0 * r[0], 0.5 + r[1]])
-        .collect();
-    let outputs: Vec<Vec<f64>> = theta
-        .iter()
-        .map(|t| STATIONS.iter().map(|s| curve(t, *s)).collect())
-        .collect();
-    let er = ExperimentRuns {
-        experiment: "bench".into(),
-        point_ids: (1..=n).map(|i| format!("p{i:04}")).collect(),
-        inputs: theta,
-        outputs,
-        value_names: STATIONS.iter().map(|s| format!("y@{s}")).collect(),
-        record_sha256: vec![String::new(); n],
-        output_sha256: vec![None; n],
-    };
-    (
-        RunSet {
-            experiments: vec![er],
-        },
-        params,
-    )
+    (curve_runs(n, seed, &params, "bench"), params)
 }
 
 #[test]

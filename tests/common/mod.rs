@@ -5,6 +5,8 @@
 //! Each test binary uses a different subset of these helpers.
 #![allow(dead_code)]
 
+pub mod curve;
+
 use std::path::{Path, PathBuf};
 use std::time::Duration;
 
