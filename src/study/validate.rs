@@ -11,7 +11,8 @@ use std::collections::{BTreeMap, BTreeSet};
 use std::path::{Component, Path, PathBuf};
 
 pub use super::spec::{
-    ControlDesign, DesignMethod, DesignSpace, HyperpriorChoice, KernelChoice, MeanChoice,
+    ControlDesign, DesignMethod, DesignSpace, HyperparameterMode, HyperpriorChoice, KernelChoice,
+    MeanChoice,
 };
 
 /// Placeholders assay provides itself; parameters and settings may not take these names.
@@ -161,6 +162,8 @@ pub struct DiscrepancyParams {
     pub length_scale: Option<LengthScaleSpec>,
     /// The experiments with a discrepancy (every experiment unless named).
     pub experiments: Vec<String>,
+    /// Sampled with the parameters, or fixed at their joint posterior mode first.
+    pub hyperparameters: HyperparameterMode,
 }
 
 /// A checked study.
@@ -1063,6 +1066,22 @@ fn check_discrepancy(
         }
         _ => {}
     }
+    // `map` estimates the hyperparameters that have a prior; with none there is nothing
+    // to estimate, and the key would silently mean `sampled`.
+    let sd_fixed = matches!(d.sd, Some(DiscrepancySdSpec::Fixed(_)));
+    let no_length_scale = spec.simulator.output.x.is_none() && spec.controls.is_empty();
+    let length_fixed = matches!(d.length_scale, Some(LengthScaleSpec::Fixed(_)));
+    if d.hyperparameters == HyperparameterMode::Map && sd_fixed && (length_fixed || no_length_scale)
+    {
+        c.err(
+            "calibration.discrepancy.hyperparameters",
+            if no_length_scale {
+                "`map` needs a hyperparameter to estimate, but `sd` is fixed and scalar outputs have no length-scale: give `sd` a prior (`{half_normal: {scale: s}}`) or leave `hyperparameters` out"
+            } else {
+                "`map` needs a hyperparameter to estimate, but `sd` and `length_scale` are both fixed: give one of them a prior or leave `hyperparameters` out"
+            },
+        );
+    }
     let all: Vec<String> = spec.experiments.iter().map(|e| e.name.clone()).collect();
     let experiments = match &d.experiments {
         None => all,
@@ -1089,6 +1108,7 @@ fn check_discrepancy(
         sd: d.sd,
         length_scale: d.length_scale,
         experiments,
+        hyperparameters: d.hyperparameters,
     }
 }
 
