@@ -226,6 +226,8 @@ fn discrepancy_is_sampled_reported_and_widens_the_predictive_checks() {
         samples.lines().next().unwrap(),
         "chain,draw,A,B,discrepancy_sd.bench.y,discrepancy_length_scale.bench.y,log_posterior"
     );
+    let html = env.read("runs/tsim/report.html");
+    assert!(html.contains("<h3>Model discrepancy</h3>") && html.contains("<td>sampled</td>"));
     let study = env.path("study.yaml");
     env.assay(["verify"]).arg(&study).assert().success();
 }
@@ -337,6 +339,14 @@ fn discrepancy_hyperparameters_fixed_at_their_mode_are_recorded_and_verified() {
     assert_eq!(
         samples.lines().next().unwrap(),
         "chain,draw,A,B,log_posterior"
+    );
+    // The report's discrepancy table says how they were fixed.
+    let html = env.read("runs/tsim/report.html");
+    assert!(
+        html.contains("<h3>Model discrepancy</h3>")
+            && html.contains("<td>fixed at the joint posterior mode</td>")
+            && html.contains("Their uncertainty is not carried into the posterior"),
+        "the report's discrepancy section"
     );
     env.assay(["verify"]).arg(&study).assert().success();
     // Back to sampled hyperparameters: the posterior is made again.
