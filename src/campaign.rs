@@ -606,6 +606,9 @@ pub fn calibrate_stage(
     } else {
         (full, None)
     };
+    if params.kind == crate::study::spec::SamplerChoice::Nuts && !post.has_gradient() {
+        bail!("`calibration.sampler: nuts` needs the gradient of every part of the log posterior, and this study has a part without one: use `adaptive_metropolis`");
+    }
     let chains = sample(&post, &params, stop, observer);
     let names = c.study.parameter_names();
     let noise_names = post.noise_names();

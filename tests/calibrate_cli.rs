@@ -358,3 +358,30 @@ fn discrepancy_hyperparameters_fixed_at_their_mode_are_recorded_and_verified() {
     let samples = env.read("runs/tsim/posterior-samples.csv");
     assert!(samples.starts_with("chain,draw,A,B,discrepancy_sd.bench.y,"));
 }
+
+/// `sampler: nuts` with `hyperparameters: map`: the study is accepted (sampled
+/// hyperparameters would be refused, having no gradient yet) and the No-U-Turn sampler
+/// runs with the hyperparameters fixed at the mode.
+#[test]
+fn nuts_samples_with_the_hyperparameters_fixed_at_their_mode() {
+    let env = Env::new();
+    let text = edit(
+        &env.minimal_study("ok"),
+        "warmup: 100, draws: 100, seed: 3}",
+        "warmup: 300, draws: 300, seed: 3, sampler: nuts, discrepancy: {hyperparameters: map}}",
+    );
+    let study = env.write_study_text(&text);
+    let out = env.assay(["all"]).arg(&study).output().unwrap();
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let text = env.read("runs/tsim/posterior.yaml");
+    let p: PosteriorWithMap = serde_yaml::from_str(&text).unwrap_or_else(|e| panic!("{e}\n{text}"));
+    assert_eq!(
+        p.discrepancy["bench"]["y"].sd.fixed_at.as_deref(),
+        Some("map")
+    );
+    assert!(text.contains("No-U-Turn"), "{text}");
+}

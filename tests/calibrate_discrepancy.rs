@@ -152,6 +152,9 @@ fn discrepancy_settings_parse_in_each_form() {
         "  discrepancy: {hyperparameters: map}\n",
         "  discrepancy: {hyperparameters: sampled}\n",
         "  discrepancy: {sd: {fixed: 0.2}, hyperparameters: map}\n",
+        // At the mode the hyperparameters are fixed while θ is sampled: NUTS has its
+        // gradient.
+        "  sampler: nuts\n  discrepancy: {hyperparameters: map}\n",
     ] {
         assert_eq!(study_errors("x: x, ", block), Vec::<String>::new(), "{block}");
     }

@@ -281,6 +281,9 @@ fn theta_sampled_at_the_mode_matches_the_closed_form() {
     let (s, ell) = (est.x[2], est.x[3]);
     let post = LogPosterior::new(parameters(&f.priors), with_fixed_discrepancy(&full, &est.x));
     assert_eq!(post.dim(), 2, "only θ is sampled");
+    // Fixed hyperparameters leave the likelihood's gradient available to `sampler:
+    // nuts`; sampled ones do not (yet).
+    assert!(post.experiments[0].1.has_gradient() && !full.experiments[0].1.has_gradient());
 
     // The closed form, every measurement its own row.
     let n = c.x.len();

@@ -22,8 +22,9 @@ use assay::calibrate::{
     PosteriorSummary, SamplerParams,
 };
 use assay::progress::Silent;
+use assay::study::spec::SamplerChoice;
 use assay::study::{Parameter, Prior};
-use assay::surrogate::Kernel;
+use assay::surrogate::{Kernel, LowRankGradient, LowRankPrediction};
 use ndarray::{Array1, Array2};
 use ndarray_linalg::Inverse;
 use std::sync::atomic::AtomicBool;
@@ -57,6 +58,24 @@ impl Emulator for Quadratic {
             .map(|x| theta[0] + theta[1] * x + theta[2] * x * x)
             .collect();
         (m, vec![0.0; XS.len()])
+    }
+
+    /// ∂μ_j/∂θ = (1, x_j, x_j²); no predictive variance.
+    fn predict_low_rank_with_gradient(
+        &self,
+        theta: &[f64],
+    ) -> Option<(LowRankPrediction, LowRankGradient)> {
+        let (m, v) = self.predict(theta);
+        let grad = LowRankGradient {
+            mean: Array2::from_shape_fn((XS.len(), 3), |(j, c)| XS[j].powi(c as i32)),
+            weight_var: Array2::zeros((0, 3)),
+            diag: None,
+        };
+        Some((LowRankPrediction::diagonal(m, v), grad))
+    }
+
+    fn has_gradient(&self) -> bool {
+        true
     }
 }
 
@@ -120,12 +139,11 @@ fn assert_matches(
     names: &[String],
     m: &Array1<f64>,
     cov: &Array2<f64>,
-    seed: u64,
+    params: SamplerParams,
 ) -> PosteriorSummary {
     let em = Quadratic;
     let post = LogPosterior::new(parameters(names), vec![(&em as &dyn Emulator, lik)]);
     assert_eq!(post.dim(), 3, "only θ is sampled");
-    let params = SamplerParams::metropolis(4, 4000, 20000, seed);
     let chains = sample(&post, &params, &AtomicBool::new(false), &Silent);
     let s = summarize(names, &[], &chains).with_discrepancy(&post, &chains);
     for j in 0..3 {
@@ -159,7 +177,13 @@ fn quadratic_curve_with_normal_priors_matches_the_linear_gaussian_posterior() {
     let names: Vec<String> = ["t1", "t2", "t3"].iter().map(|s| s.to_string()).collect();
     let sds: Vec<Vec<f64>> = values.iter().map(|v| vec![SIGMA; v.len()]).collect();
     let lik = ExperimentLikelihood::from_values("curve", &values, &sds);
-    let s = assert_matches(lik, &names, &m, &cov, 101);
+    let s = assert_matches(
+        lik,
+        &names,
+        &m,
+        &cov,
+        SamplerParams::metropolis(4, 4000, 20000, 101),
+    );
     let exact_corr = cov[[0, 1]] / (cov[[0, 0]] * cov[[1, 1]]).sqrt();
     let got = s.correlation.matrix[0][1];
     assert!(
@@ -204,11 +228,67 @@ fn fixed_discrepancy_matches_the_linear_gaussian_posterior_with_its_covariance()
     let names: Vec<String> = ["t1", "t2", "t3"].iter().map(|s| s.to_string()).collect();
     let sds: Vec<Vec<f64>> = values.iter().map(|v| vec![SIGMA; v.len()]).collect();
     let lik = ExperimentLikelihood::from_values("curve", &values, &sds).with_discrepancy(disc);
-    let s = assert_matches(lik, &names, &m, &cov, 7);
+    let s = assert_matches(
+        lik,
+        &names,
+        &m,
+        &cov,
+        SamplerParams::metropolis(4, 4000, 20000, 7),
+    );
     // The record states the fixed values.
     let (e, q, d) = &s.discrepancy[0];
     assert_eq!((e.as_str(), q.as_str()), ("curve", "y"));
     assert_eq!(d.sd.value, Some(DELTA_SD));
     assert_eq!(d.length_scale.as_ref().unwrap().value, Some(DELTA_ELL));
     assert!(d.sd.posterior.is_none());
+}
+
+/// The No-U-Turn sampler's settings for the tests: 4 chains, 1,000 warm-up iterations
+/// and 2,000 draws each (its draws are far less correlated than a random walk's).
+fn nuts(seed: u64) -> SamplerParams {
+    SamplerParams {
+        kind: SamplerChoice::Nuts,
+        ..SamplerParams::metropolis(4, 1000, 2000, seed)
+    }
+}
+
+#[test]
+fn nuts_matches_the_linear_gaussian_posterior() {
+    let values = field_data();
+    let (m, cov) = exact(&values, |_, _, same| if same { SIGMA * SIGMA } else { 0.0 });
+    let names: Vec<String> = ["t1", "t2", "t3"].iter().map(|s| s.to_string()).collect();
+    let sds: Vec<Vec<f64>> = values.iter().map(|v| vec![SIGMA; v.len()]).collect();
+    let lik = ExperimentLikelihood::from_values("curve", &values, &sds);
+    let s = assert_matches(lik, &names, &m, &cov, nuts(23));
+    let exact_corr = cov[[0, 1]] / (cov[[0, 0]] * cov[[1, 1]]).sqrt();
+    let got = s.correlation.matrix[0][1];
+    assert!(
+        (got - exact_corr).abs() < CORR_ATOL,
+        "corr(t1, t2) {got} vs exact {exact_corr}"
+    );
+    assert!(s.warnings.is_empty(), "{:?}", s.warnings);
+}
+
+#[test]
+fn nuts_matches_the_linear_gaussian_posterior_with_a_fixed_discrepancy() {
+    let values = field_data();
+    let (m, cov) = exact(&values, |xa, xb, same| {
+        DELTA_SD * DELTA_SD * (-0.5 * ((xa - xb) / DELTA_ELL).powi(2)).exp()
+            + if same { SIGMA * SIGMA } else { 0.0 }
+    });
+    let disc = Discrepancy {
+        kernel: Kernel::SquaredExponential,
+        blocks: vec![DiscrepancyBlock {
+            quantity: "y".into(),
+            index: (0..XS.len()).collect(),
+            x: Some(XS.to_vec()),
+            sd: Hyper::Fixed(DELTA_SD),
+            length_scale: Some(Hyper::Fixed(DELTA_ELL)),
+            at: None,
+        }],
+    };
+    let names: Vec<String> = ["t1", "t2", "t3"].iter().map(|s| s.to_string()).collect();
+    let sds: Vec<Vec<f64>> = values.iter().map(|v| vec![SIGMA; v.len()]).collect();
+    let lik = ExperimentLikelihood::from_values("curve", &values, &sds).with_discrepancy(disc);
+    assert_matches(lik, &names, &m, &cov, nuts(29));
 }

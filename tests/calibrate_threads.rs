@@ -9,7 +9,9 @@ use assay::calibrate::{
     sample, Chain, Emulator, ExperimentLikelihood, InverseGamma, LogPosterior, SamplerParams,
 };
 use assay::progress::Silent;
+use assay::study::spec::SamplerChoice;
 use assay::study::{Parameter, Prior};
+use assay::surrogate::{LowRankGradient, LowRankPrediction};
 use std::sync::atomic::AtomicBool;
 
 /// y = (θ₁ + θ₂ x) at three x values, exact.
@@ -23,9 +25,26 @@ impl Emulator for Line {
             .collect();
         (m, vec![0.0; 3])
     }
+
+    fn predict_low_rank_with_gradient(
+        &self,
+        theta: &[f64],
+    ) -> Option<(LowRankPrediction, LowRankGradient)> {
+        let (m, v) = self.predict(theta);
+        let grad = LowRankGradient {
+            mean: ndarray::array![[1.0, 0.0], [1.0, 1.0], [1.0, 2.0]],
+            weight_var: ndarray::Array2::zeros((0, 2)),
+            diag: None,
+        };
+        Some((LowRankPrediction::diagonal(m, v), grad))
+    }
+
+    fn has_gradient(&self) -> bool {
+        true
+    }
 }
 
-fn run(threads: usize) -> Vec<Chain> {
+fn run(threads: usize, kind: SamplerChoice) -> Vec<Chain> {
     let parameters = vec![
         Parameter {
             name: "a".into(),
@@ -53,7 +72,10 @@ fn run(threads: usize) -> Vec<Chain> {
     );
     let em = Line;
     let post = LogPosterior::new(parameters, vec![(&em as &dyn Emulator, lik)]);
-    let params = SamplerParams::metropolis(4, 500, 1000, 77);
+    let params = SamplerParams {
+        kind,
+        ..SamplerParams::metropolis(4, 500, 1000, 77)
+    };
     rayon::ThreadPoolBuilder::new()
         .num_threads(threads)
         .build()
@@ -69,8 +91,17 @@ fn bits(rows: &[Vec<f64>]) -> Vec<Vec<u64>> {
 
 #[test]
 fn one_thread_and_two_threads_give_identical_samples() {
-    let one = run(1);
-    let two = run(2);
+    same_samples(SamplerChoice::AdaptiveMetropolis);
+}
+
+#[test]
+fn one_thread_and_two_threads_give_identical_samples_with_nuts() {
+    same_samples(SamplerChoice::Nuts);
+}
+
+fn same_samples(kind: SamplerChoice) {
+    let one = run(1, kind);
+    let two = run(2, kind);
     assert_eq!(one.len(), two.len());
     for (c1, c2) in one.iter().zip(&two) {
         assert_eq!(c1.index, c2.index);

@@ -19,7 +19,9 @@ use assay::calibrate::{
     sample, summarize, Emulator, ExperimentLikelihood, InverseGamma, LogPosterior, SamplerParams,
 };
 use assay::progress::Silent;
+use assay::study::spec::SamplerChoice;
 use assay::study::{Parameter, Prior};
+use assay::surrogate::{LowRankGradient, LowRankPrediction};
 use std::sync::atomic::AtomicBool;
 
 /// The posterior mean must be within this many Monte Carlo standard errors of the exact
@@ -43,6 +45,22 @@ struct Identity;
 impl Emulator for Identity {
     fn predict(&self, theta: &[f64]) -> (Vec<f64>, Vec<f64>) {
         (vec![theta[0]], vec![0.0])
+    }
+
+    fn predict_low_rank_with_gradient(
+        &self,
+        theta: &[f64],
+    ) -> Option<(LowRankPrediction, LowRankGradient)> {
+        let grad = LowRankGradient {
+            mean: ndarray::array![[1.0]],
+            weight_var: ndarray::Array2::zeros((0, 1)),
+            diag: None,
+        };
+        Some((LowRankPrediction::diagonal(vec![theta[0]], vec![0.0]), grad))
+    }
+
+    fn has_gradient(&self) -> bool {
+        true
     }
 }
 
@@ -69,7 +87,7 @@ fn exact(ys: &[f64], a: f64, b: f64) -> Exact {
     }
 }
 
-fn check(ys: &[f64], a: f64, b: f64, seed: u64) {
+fn check(ys: &[f64], a: f64, b: f64, params: SamplerParams) {
     let ex = exact(ys, a, b);
     // ±200 t-scales: with ν ≥ 12 the t tail beyond carries < 1e-25 of the mass, so the
     // uniform prior is flat for every practical purpose.
@@ -89,7 +107,6 @@ fn check(ys: &[f64], a: f64, b: f64, seed: u64) {
     let em = Identity;
     let post = LogPosterior::new(vec![p], vec![(&em as &dyn Emulator, lik)]);
     assert_eq!(post.noise_names(), vec!["e".to_string()]);
-    let params = SamplerParams::metropolis(4, 3000, 20000, seed);
     let chains = sample(&post, &params, &AtomicBool::new(false), &Silent);
     let s = summarize(&["mu".into()], &post.noise_names(), &chains);
     let mu = s.parameters[0];
@@ -127,7 +144,7 @@ fn check(ys: &[f64], a: f64, b: f64, seed: u64) {
 fn flat_mean_inverse_gamma_variance_gives_student_t() {
     // ν = 2·2 + 10 − 1 = 13.
     let ys = [4.1, 3.7, 5.2, 4.8, 3.9, 4.4, 5.0, 4.6, 3.5, 4.3];
-    check(&ys, 2.0, 1.0, 5);
+    check(&ys, 2.0, 1.0, SamplerParams::metropolis(4, 3000, 20000, 5));
 }
 
 #[test]
@@ -135,5 +152,22 @@ fn few_replicates_with_an_informative_variance_prior() {
     // ν = 2·4 + 5 − 1 = 12; the prior (mean σ² = 0.1) and the data (S/(n−1) ≈ 0.87)
     // disagree, so the posterior is a real compromise, not the data alone.
     let ys = [-1.2, 0.3, -0.4, 1.1, -0.9];
-    check(&ys, 4.0, 0.3, 23);
+    check(&ys, 4.0, 0.3, SamplerParams::metropolis(4, 3000, 20000, 23));
+}
+
+#[test]
+fn nuts_gives_the_student_t_and_the_inverse_gamma_moments() {
+    // The same two cases with the No-U-Turn sampler (4 chains, 1,000 warm-up, 4,000
+    // draws each): the noise variance is moved by the gradient too.
+    let nuts = |seed| SamplerParams {
+        kind: SamplerChoice::Nuts,
+        ..SamplerParams::metropolis(4, 1000, 4000, seed)
+    };
+    check(
+        &[4.1, 3.7, 5.2, 4.8, 3.9, 4.4, 5.0, 4.6, 3.5, 4.3],
+        2.0,
+        1.0,
+        nuts(6),
+    );
+    check(&[-1.2, 0.3, -0.4, 1.1, -0.9], 4.0, 0.3, nuts(24));
 }

@@ -22,6 +22,7 @@ const EXIT_BAD_INPUT: i32 = 2;
 /// study.yaml` run inside the folder.
 const CASES: &[(&str, &str)] = &[
     ("calibration-chains-zero", "study.yaml:26: calibration.chains: chains must be at least 1"),
+    ("calibration-nuts-sampled-discrepancy", "study.yaml:27: calibration.sampler: `nuts` needs the discrepancy's hyperparameters fixed"),
     ("calibration-too-few-draws", "study.yaml:26: calibration.draws: 3 draws per chain are too few (at least 10)"),
     ("data-duplicated-column", "study.yaml:23: experiments[0].data: ./field-A.csv:1: column `deflection` appears more than once"),
     ("data-empty-cell", "study.yaml:23: experiments[0].data: ./field-A.csv:2: empty cell in column `deflection`"),

@@ -41,7 +41,7 @@
 use super::discrepancy::Discrepancy;
 use super::prior::InverseGamma;
 use crate::study::{Experiment, Noise, Target};
-use crate::surrogate::LowRankPrediction;
+use crate::surrogate::{LowRankGradient, LowRankPrediction};
 use ndarray::{Array1, Array2, ArrayView2};
 use ndarray_linalg::{Cholesky, Diag, FactorizeC, SolveC, SolveTriangular, UPLO};
 use std::sync::OnceLock;
@@ -57,6 +57,20 @@ pub trait Emulator: Sync {
         let (m, v) = self.predict(theta);
         LowRankPrediction::diagonal(m, v)
     }
+
+    /// [`Self::predict_low_rank`] with its derivatives with respect to θ, for the
+    /// gradient-based sampler; `None` (the default) when the emulator has none.
+    fn predict_low_rank_with_gradient(
+        &self,
+        _theta: &[f64],
+    ) -> Option<(LowRankPrediction, LowRankGradient)> {
+        None
+    }
+
+    /// Whether [`Self::predict_low_rank_with_gradient`] gives derivatives.
+    fn has_gradient(&self) -> bool {
+        false
+    }
 }
 
 impl Emulator for crate::surrogate::ExperimentModel {
@@ -67,6 +81,17 @@ impl Emulator for crate::surrogate::ExperimentModel {
     fn predict_low_rank(&self, theta: &[f64]) -> LowRankPrediction {
         crate::surrogate::ExperimentModel::predict_low_rank(self, theta)
     }
+
+    fn predict_low_rank_with_gradient(
+        &self,
+        theta: &[f64],
+    ) -> Option<(LowRankPrediction, LowRankGradient)> {
+        Some(crate::surrogate::ExperimentModel::predict_low_rank_with_gradient(self, theta))
+    }
+
+    fn has_gradient(&self) -> bool {
+        true
+    }
 }
 
 impl Emulator for crate::surrogate::FieldEmulator<'_> {
@@ -76,6 +101,21 @@ impl Emulator for crate::surrogate::FieldEmulator<'_> {
 
     fn predict_low_rank(&self, theta: &[f64]) -> LowRankPrediction {
         crate::surrogate::FieldEmulator::predict_low_rank(self, theta)
+    }
+
+    /// The plain surrogate's; none at field conditions (controls).
+    fn predict_low_rank_with_gradient(
+        &self,
+        theta: &[f64],
+    ) -> Option<(LowRankPrediction, LowRankGradient)> {
+        match self {
+            Self::Plain(m) => Some(m.predict_low_rank_with_gradient(theta)),
+            Self::Conditioned(_) => None,
+        }
+    }
+
+    fn has_gradient(&self) -> bool {
+        matches!(self, Self::Plain(_))
     }
 }
 
@@ -217,6 +257,165 @@ pub fn ln_normal_factored_low_rank(
         ln_det += ln_det_m;
     }
     -0.5 * (p as f64 * LN_2PI + ln_det + quad)
+}
+
+/// ln L and its derivatives: what [`ExperimentLikelihood::ln_likelihood_with_gradient`]
+/// returns.
+#[derive(Debug, Clone, PartialEq)]
+pub struct LikelihoodGradient {
+    pub value: f64,
+    /// ∂ ln L/∂μ_j (p).
+    pub mean: Vec<f64>,
+    /// ∂ ln L/∂v_k, the weights' predictive variances (K).
+    pub weight_var: Vec<f64>,
+    /// ∂ ln L/∂diag_j, the emulator's diagonal variance (p; empty unless asked for).
+    pub diag: Vec<f64>,
+    /// ∂ ln L/∂σ² with unknown noise (0 with known noise).
+    pub noise_var: f64,
+}
+
+/// How the base matrix of the normal (Λ, or Λ + K_δ) is inverted.
+enum Base {
+    /// diag(λ).
+    Diagonal(Vec<f64>),
+    /// Its lower Cholesky factor.
+    Dense(Array2<f64>),
+}
+
+impl Base {
+    /// Base⁻¹ X (p × m).
+    fn solve(&self, x: &Array2<f64>) -> Option<Array2<f64>> {
+        match self {
+            Base::Diagonal(l) => Some(Array2::from_shape_fn(x.dim(), |(j, c)| x[[j, c]] / l[j])),
+            Base::Dense(l) => {
+                let y = l.solve_triangular(UPLO::Lower, Diag::NonUnit, x).ok()?;
+                l.t().solve_triangular(UPLO::Upper, Diag::NonUnit, &y).ok()
+            }
+        }
+    }
+
+    fn ln_det(&self) -> f64 {
+        match self {
+            Base::Diagonal(l) => l.iter().map(|v| v.ln()).sum(),
+            Base::Dense(l) => 2.0 * l.diag().iter().map(|v| v.ln()).sum::<f64>(),
+        }
+    }
+
+    /// diag(Base⁻¹).
+    fn inverse_diag(&self) -> Option<Vec<f64>> {
+        match self {
+            Base::Diagonal(l) => Some(l.iter().map(|v| 1.0 / v).collect()),
+            Base::Dense(l) => {
+                let p = l.nrows();
+                let li = l
+                    .solve_triangular(UPLO::Lower, Diag::NonUnit, &Array2::eye(p))
+                    .ok()?;
+                Some(
+                    (0..p)
+                        .map(|j| li.column(j).iter().map(|v| v * v).sum())
+                        .collect(),
+                )
+            }
+        }
+    }
+}
+
+/// ln N(r; 0, Base + B diag(v) Bᵀ) and its derivatives with respect to r's mean (−r),
+/// v and the diagonal of Base (`with_diag` asks for the last; `noise_var` is left 0).
+///
+/// # Formula
+/// Σ = Base + GGᵀ, G = B diag(√v). With G̃ = Base⁻¹G, M = I + GᵀG̃ and the Woodbury
+/// identity Σ⁻¹ = Base⁻¹ − G̃ M⁻¹ G̃ᵀ: a = Σ⁻¹r,
+/// ∂ ln N/∂μ = a (r = ȳ − μ), ∂ ln N/∂v_k = −½ (b_kᵀΣ⁻¹b_k − (b_kᵀa)²),
+/// ∂ ln N/∂Base_jj = −½ ((Σ⁻¹)_jj − a_j²) (∂ ln |Σ| = tr Σ⁻¹∂Σ and
+/// ∂ rᵀΣ⁻¹r = −aᵀ ∂Σ a: Petersen & Pedersen, The Matrix Cookbook (2012), eqs. 57 and
+/// 61). With P = BᵀBase⁻¹B, BᵀΣ⁻¹B = P − P diag(√v) M⁻¹ diag(√v) P.
+fn ln_normal_gradient(
+    r: &[f64],
+    base: &Base,
+    basis: ArrayView2<f64>,
+    v: &[f64],
+    with_diag: bool,
+) -> Option<LikelihoodGradient> {
+    let p = r.len();
+    let k = v.len();
+    let r_col = Array2::from_shape_fn((p, 1), |(j, _)| r[j]);
+    let r_t = base.solve(&r_col)?.column(0).to_owned();
+    let sv: Vec<f64> = v.iter().map(|x| x.max(0.0).sqrt()).collect();
+    let mut ln_det = base.ln_det();
+    let r_arr = Array1::from(r.to_vec());
+    if k == 0 {
+        let quad = r_arr.dot(&r_t);
+        let diag = if with_diag {
+            let inv = base.inverse_diag()?;
+            (0..p).map(|j| -0.5 * (inv[j] - r_t[j] * r_t[j])).collect()
+        } else {
+            Vec::new()
+        };
+        return Some(LikelihoodGradient {
+            value: -0.5 * (p as f64 * LN_2PI + ln_det + quad),
+            mean: r_t.to_vec(),
+            weight_var: vec![],
+            diag,
+            noise_var: 0.0,
+        });
+    }
+    let b_t = base.solve(&basis.to_owned())?; // Base⁻¹B
+    let pm = basis.t().dot(&b_t); // P = BᵀBase⁻¹B
+    let mut m = Array2::<f64>::eye(k);
+    for a in 0..k {
+        for b in 0..k {
+            m[[a, b]] += sv[a] * pm[[a, b]] * sv[b];
+        }
+    }
+    let f = m.factorizec(UPLO::Lower).ok()?;
+    ln_det += 2.0 * f.factor.diag().iter().map(|v| v.ln()).sum::<f64>();
+    // c = Gᵀ Base⁻¹ r; t = M⁻¹c; a = Base⁻¹r − G̃ t.
+    let c = Array1::from_shape_fn(k, |a| sv[a] * basis.column(a).dot(&r_t));
+    let t = f.solvec(&c).ok()?;
+    let mut a = r_t.clone();
+    for q in 0..k {
+        let coef = sv[q] * t[q];
+        a.scaled_add(-coef, &b_t.column(q));
+    }
+    let quad = r_arr.dot(&a);
+    let value = -0.5 * (p as f64 * LN_2PI + ln_det + quad);
+    // diag(√v) P, then X = M⁻¹ diag(√v) P.
+    let sp = Array2::from_shape_fn((k, k), |(a, b)| sv[a] * pm[[a, b]]);
+    let mut x = Array2::zeros((k, k));
+    for col in 0..k {
+        let sol = f.solvec(&sp.column(col).to_owned()).ok()?;
+        x.column_mut(col).assign(&sol);
+    }
+    let bta = basis.t().dot(&a);
+    let gv: Vec<f64> = (0..k)
+        .map(|q| {
+            let quad_q = pm[[q, q]] - sp.column(q).dot(&x.column(q));
+            -0.5 * (quad_q - bta[q] * bta[q])
+        })
+        .collect();
+    let diag = if with_diag {
+        // (Σ⁻¹)_jj = (Base⁻¹)_jj − Σ_ab G̃_ja (M⁻¹)_ab G̃_jb.
+        let inv = base.inverse_diag()?;
+        let g_t = Array2::from_shape_fn((p, k), |(j, q)| b_t[[j, q]] * sv[q]);
+        let mut out = Vec::with_capacity(p);
+        for j in 0..p {
+            let row = g_t.row(j).to_owned();
+            let s = f.solvec(&row).ok()?;
+            let sig_jj = inv[j] - row.dot(&s);
+            out.push(-0.5 * (sig_jj - a[j] * a[j]));
+        }
+        out
+    } else {
+        Vec::new()
+    };
+    Some(LikelihoodGradient {
+        value,
+        mean: a.to_vec(),
+        weight_var: gv,
+        diag,
+        noise_var: 0.0,
+    })
 }
 
 /// Precomputed statistics of one output value's replicates.
@@ -487,6 +686,99 @@ impl ExperimentLikelihood {
             noise_var,
             discrepancy,
         )
+    }
+
+    /// Whether [`Self::ln_likelihood_with_gradient`] gives derivatives: not with
+    /// sampled discrepancy hyperparameters, nor with a discrepancy and an unknown noise
+    /// variance.
+    pub fn has_gradient(&self) -> bool {
+        match &self.discrepancy {
+            None => true,
+            Some(d) => d.n_sampled() == 0 && self.noise == NoiseModel::Known,
+        }
+    }
+
+    /// ln L (as [`Self::ln_likelihood_low_rank`]) with its derivatives with respect to
+    /// the prediction's mean and weight variances, its diagonal (when `with_diag`) and
+    /// the noise variance; `None` where [`Self::has_gradient`] is false. A likelihood of
+    /// −∞ comes with zero derivatives.
+    ///
+    /// # Formula
+    /// See [`ln_normal_gradient`]; with an unknown variance σ²,
+    /// Λ_j = diag_j + σ²/n_j gives ∂/∂σ² = Σ_j (1/n_j) ∂/∂Λ_j − ν/(2σ²) + S/(2σ⁴)
+    /// (module documentation).
+    pub fn ln_likelihood_with_gradient(
+        &self,
+        pred: &LowRankPrediction,
+        noise_var: f64,
+        with_diag: bool,
+    ) -> Option<LikelihoodGradient> {
+        if !self.has_gradient() {
+            return None;
+        }
+        let p = self.groups.len();
+        let k = pred.weight_var.len();
+        let minus_inf = LikelihoodGradient {
+            value: f64::NEG_INFINITY,
+            mean: vec![0.0; p],
+            weight_var: vec![0.0; k],
+            diag: if with_diag { vec![0.0; p] } else { Vec::new() },
+            noise_var: 0.0,
+        };
+        let (scale, mut s, mut ds) = match self.noise {
+            NoiseModel::Known => (1.0, 0.0, 0.0),
+            NoiseModel::Unknown { dof, ss, .. } => {
+                if !(noise_var > 0.0 && noise_var.is_finite()) {
+                    return Some(minus_inf);
+                }
+                (
+                    noise_var,
+                    -0.5 * (dof * noise_var.ln() + ss / noise_var),
+                    -0.5 * dof / noise_var + 0.5 * ss / (noise_var * noise_var),
+                )
+            }
+        };
+        let mut r = Vec::with_capacity(p);
+        let mut lambda = Vec::with_capacity(p);
+        for ((g, m), d) in self.groups.iter().zip(&pred.mean).zip(&pred.diag) {
+            r.push(g.ybar - m);
+            lambda.push(d + scale * g.var_mean);
+            s += g.constant;
+        }
+        if lambda.iter().any(|l| !(*l > 0.0 && l.is_finite())) || r.iter().any(|v| !v.is_finite()) {
+            return Some(minus_inf);
+        }
+        let base = match &self.discrepancy {
+            None => Base::Diagonal(lambda.clone()),
+            Some(d) => match self.base_factor(d, &lambda, &[]) {
+                Some(l) => Base::Dense(l),
+                None => return Some(minus_inf),
+            },
+        };
+        let unknown = self.noise != NoiseModel::Known;
+        let Some(mut lg) = ln_normal_gradient(
+            &r,
+            &base,
+            pred.basis.view(),
+            &pred.weight_var,
+            with_diag || unknown,
+        ) else {
+            return Some(minus_inf);
+        };
+        if unknown {
+            ds += self
+                .groups
+                .iter()
+                .zip(&lg.diag)
+                .map(|(g, dl)| g.var_mean * dl)
+                .sum::<f64>();
+        }
+        lg.value += s;
+        lg.noise_var = ds;
+        if !with_diag {
+            lg.diag.clear();
+        }
+        Some(lg)
     }
 
     /// The lower Cholesky factor of diag(λ) + K_δ(hyper).

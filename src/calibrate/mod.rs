@@ -13,6 +13,7 @@ pub mod discrepancy;
 pub mod ensemble;
 mod likelihood;
 pub mod map;
+pub mod nuts;
 mod posterior;
 mod prior;
 mod sampler;
@@ -24,6 +25,7 @@ pub use diagnostics::{
 pub use discrepancy::{Discrepancy, Hyper, HyperKind};
 pub use likelihood::{
     ln_normal_factored_low_rank, ln_normal_low_rank, Emulator, ExperimentLikelihood,
+    LikelihoodGradient,
 };
 pub use map::{find_map, with_fixed_discrepancy, MapError, MapEstimate, MapParams};
 pub use posterior::LogPosterior;

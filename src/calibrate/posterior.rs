@@ -8,7 +8,7 @@
 
 use super::likelihood::{Emulator, ExperimentLikelihood};
 use super::prior::{ln_prior, InverseGamma, MvnPrior, Transform};
-use crate::study::Parameter;
+use crate::study::{Parameter, Prior};
 use std::sync::atomic::{AtomicU64, Ordering};
 
 /// ln p(θ, σ² | data) + const, evaluated at unconstrained z.
@@ -262,6 +262,133 @@ impl<'a> LogPosterior<'a> {
         self.n_evaluations.fetch_add(1, Ordering::Relaxed);
         let x = self.to_constrained(z);
         self.ln_posterior(&x) + self.ln_jacobian(z)
+    }
+
+    /// Whether [`Self::ln_density_and_gradient`] gives the gradient: every emulator
+    /// and every likelihood provides derivatives (not with control variables, sampled
+    /// discrepancy hyperparameters, or a discrepancy with an unknown noise variance).
+    pub fn has_gradient(&self) -> bool {
+        self.experiments
+            .iter()
+            .all(|(em, lik)| em.has_gradient() && lik.has_gradient())
+    }
+
+    /// [`Self::ln_density`] and its gradient with respect to z; `None` where
+    /// [`Self::has_gradient`] is false. Counts as one evaluation. Where the density is
+    /// −∞ the gradient is zero.
+    ///
+    /// # Formula
+    /// By the chain rule through x(z): ∂/∂z_l = (∂ ln p/∂θ_l) dθ_l/dz_l + ∂ ln|dx/dz|/∂z_l,
+    /// with dθ/dz = (b − a) s(1 − s) and ∂ ln|dθ/dz|/∂z = 1 − 2s (s the logistic function
+    /// of z, [`Transform`]); for σ² = e^z, ∂/∂z = σ² ∂ ln p/∂σ² + 1. Priors: normal
+    /// −(θ − m)/s², lognormal −(1 + (ln θ − μ)/σ²)/θ, inverse-gamma
+    /// −(α + 1)/σ² + β/σ⁴; a normal prior on z (`prior_from`) −Σ⁻¹(z − μ) directly.
+    /// The likelihood's part comes from [`ExperimentLikelihood::ln_likelihood_with_gradient`]
+    /// and the emulator's derivatives.
+    pub fn ln_density_and_gradient(&self, z: &[f64]) -> Option<(f64, Vec<f64>)> {
+        if !self.has_gradient() {
+            return None;
+        }
+        self.n_evaluations.fetch_add(1, Ordering::Relaxed);
+        let d = self.n_parameters();
+        let dim = self.dim();
+        let zero = |v: f64| Some((v, vec![0.0; dim]));
+        let x = self.to_constrained(z);
+        let (theta, noise_var) = x.split_at(d);
+        let noise_var = &noise_var[..self.n_noise()];
+        // ∂/∂θ (constrained) and ∂/∂σ², then to z at the end.
+        let mut g_theta = vec![0.0; d];
+        let mut g_noise = vec![0.0; self.n_noise()];
+        let mut lp = 0.0;
+        if self
+            .parameters
+            .iter()
+            .zip(theta)
+            .any(|(p, x)| !(*x > p.lo && *x < p.hi))
+        {
+            return zero(f64::NEG_INFINITY);
+        }
+        // With a normal prior on z its gradient is added in z at the end.
+        if self.mvn_prior.is_none() {
+            for (j, (p, x)) in self.parameters.iter().zip(theta).enumerate() {
+                lp += ln_prior(p, *x);
+                g_theta[j] += match p.prior {
+                    Prior::Uniform => 0.0,
+                    Prior::Normal { mean, sd } => -(x - mean) / (sd * sd),
+                    Prior::LogNormal { mu, sigma } => -(1.0 + (x.ln() - mu) / (sigma * sigma)) / x,
+                };
+            }
+        }
+        for ((_, lik), slot) in self.experiments.iter().zip(&self.noise_slot) {
+            if let (Some(j), Some(prior)) = (slot, lik.noise_prior()) {
+                let v = noise_var[*j];
+                lp += prior.ln_density(v);
+                g_noise[*j] += -(prior.shape + 1.0) / v + prior.scale / (v * v);
+            }
+        }
+        if !lp.is_finite() {
+            return zero(lp);
+        }
+        for ((em, lik), slot) in self.experiments.iter().zip(&self.noise_slot) {
+            let (pred, grad) = em.predict_low_rank_with_gradient(theta)?;
+            let s2 = slot.map_or(1.0, |j| noise_var[j]);
+            let lg = lik.ln_likelihood_with_gradient(&pred, s2, grad.diag.is_some())?;
+            lp += lg.value;
+            if !lp.is_finite() {
+                return zero(f64::NEG_INFINITY);
+            }
+            for (l, g) in g_theta.iter_mut().enumerate() {
+                *g += lg
+                    .mean
+                    .iter()
+                    .enumerate()
+                    .map(|(j, a)| a * grad.mean[[j, l]])
+                    .sum::<f64>()
+                    + lg.weight_var
+                        .iter()
+                        .enumerate()
+                        .map(|(k, a)| a * grad.weight_var[[k, l]])
+                        .sum::<f64>();
+                if let Some(gd) = &grad.diag {
+                    *g += lg
+                        .diag
+                        .iter()
+                        .enumerate()
+                        .map(|(j, a)| a * gd[[j, l]])
+                        .sum::<f64>();
+                }
+            }
+            if let Some(j) = slot {
+                g_noise[*j] += lg.noise_var;
+            }
+        }
+        let mut gz = Vec::with_capacity(dim);
+        for ((g, t), zl) in g_theta.iter().zip(&self.transforms).zip(z) {
+            let s = 1.0 / (1.0 + (-zl).exp());
+            let dtheta = (t.hi - t.lo) * s * (1.0 - s);
+            gz.push(g * dtheta + (1.0 - 2.0 * s));
+        }
+        for (g, v) in g_noise.iter().zip(noise_var) {
+            gz.push(g * v + 1.0);
+        }
+        let mut value = lp + self.ln_jacobian(z);
+        if let Some(mvn) = &self.mvn_prior {
+            // ln_posterior's −ln|dθ/dz| cancels the Jacobian's θ part: the θ-part of the
+            // density is N(z; μ, Σ) itself.
+            let zt = &z[..d];
+            value += mvn.ln_density(zt)
+                - zt.iter()
+                    .zip(&self.transforms)
+                    .map(|(z, t)| t.ln_jacobian(*z))
+                    .sum::<f64>();
+            let gm = mvn.gradient(zt);
+            for l in 0..d {
+                // Replace the Jacobian's derivative (it cancels) by the normal's.
+                let s = 1.0 / (1.0 + (-z[l]).exp());
+                gz[l] += gm[l] - (1.0 - 2.0 * s);
+            }
+        }
+        Some((value, gz))
     }
 
     /// A starting value of each estimated noise variance at parameters `theta`: a draw

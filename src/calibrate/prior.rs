@@ -179,4 +179,21 @@ impl MvnPrior {
             Err(_) => f64::NEG_INFINITY,
         }
     }
+
+    /// ∂ ln N(z; μ, Σ)/∂z = −Σ⁻¹(z − μ), by two triangular solves with L.
+    pub fn gradient(&self, z: &[f64]) -> Vec<f64> {
+        let r = Array1::from_iter(z.iter().zip(&self.mean).map(|(z, m)| z - m));
+        let w = self
+            .chol
+            .solve_triangular(UPLO::Lower, Diag::NonUnit, &r)
+            .and_then(|w| {
+                self.chol
+                    .t()
+                    .solve_triangular(UPLO::Upper, Diag::NonUnit, &w)
+            });
+        match w {
+            Ok(v) => v.iter().map(|x| -x).collect(),
+            Err(_) => vec![0.0; z.len()],
+        }
+    }
 }

@@ -94,6 +94,8 @@ pub struct Chain {
     /// The chain whose warm-up state this one took over halfway through warm-up,
     /// because it was stranded far below it ([`STRANDED_GAP`]).
     pub restarted_from: Option<Restart>,
+    /// Divergent trajectories after warm-up (the No-U-Turn sampler; 0 for the others).
+    pub divergences: usize,
 }
 
 /// A stranded chain moved to another chain's position halfway through warm-up.
@@ -118,6 +120,7 @@ impl Chain {
             step_scale: 0.0,
             termination: Termination::MaxDraws,
             restarted_from: None,
+            divergences: 0,
         }
     }
 
@@ -234,7 +237,7 @@ fn initial_theta<R: Rng + ?Sized>(post: &LogPosterior<'_>, rng: &mut R) -> Vec<f
         .collect()
 }
 
-fn covariance(rows: &[Vec<f64>], d: usize) -> Array2<f64> {
+pub(crate) fn covariance(rows: &[Vec<f64>], d: usize) -> Array2<f64> {
     let n = rows.len() as f64;
     let mut mean = Array1::<f64>::zeros(d);
     for r in rows {
@@ -447,6 +450,7 @@ pub fn sample(
     match params.kind {
         SamplerChoice::AdaptiveMetropolis => sample_am(post, params, stop, observer),
         SamplerChoice::Ensemble => super::ensemble::sample(post, params, stop, observer),
+        SamplerChoice::Nuts => super::nuts::sample(post, params, stop, observer),
     }
 }
 
@@ -468,22 +472,28 @@ pub(crate) fn next_target(params: &SamplerParams, have: usize, chains: &[Chain])
 }
 
 /// Move every chain stranded more than [`STRANDED_GAP`] + `d` below the best chain to
-/// the best chain's state (the lowest index on ties). Deterministic: depends only on the
-/// chains' states, not on the thread count.
-fn rescue_stranded(states: &mut [AmChain], d: usize) {
+/// the best chain's state (the lowest index on ties): `lp` reads a chain's log density,
+/// `adopt` moves a chain to the donor's state given the gap. Deterministic: depends only
+/// on the chains' states, not on the thread count.
+pub(crate) fn rescue_stranded<T: Clone>(
+    states: &mut [T],
+    d: usize,
+    lp: impl Fn(&T) -> f64,
+    adopt: impl Fn(&mut T, &T, f64),
+) {
     let Some(best) = (0..states.len())
-        .filter(|&i| states[i].lp.is_finite())
-        .max_by(|&a, &b| states[a].lp.total_cmp(&states[b].lp).then(b.cmp(&a)))
+        .filter(|&i| lp(&states[i]).is_finite())
+        .max_by(|&a, &b| lp(&states[a]).total_cmp(&lp(&states[b])).then(b.cmp(&a)))
     else {
         return;
     };
     let donor = states[best].clone();
     for s in states.iter_mut() {
-        let gap = donor.lp - s.lp;
+        let gap = lp(&donor) - lp(s);
         // NaN or −∞ (a chain that never found a finite density) is stranded too.
         let within = gap <= STRANDED_GAP + d as f64;
         if !within {
-            s.adopt(&donor, gap);
+            adopt(s, &donor, gap);
         }
     }
 }
@@ -506,7 +516,7 @@ fn sample_am(
         })
         .collect();
     if half > 0 {
-        rescue_stranded(&mut states, post.dim());
+        rescue_stranded(&mut states, post.dim(), |c| c.lp, AmChain::adopt);
     }
     states
         .par_iter_mut()

@@ -345,6 +345,12 @@ pub fn summarize(names: &[String], noise_names: &[String], chains: &[Chain]) -> 
             ));
         }
     }
+    let divergent: usize = chains.iter().map(|c| c.divergences).sum();
+    if divergent > 0 {
+        warnings.push(format!(
+            "{divergent} divergent trajectories after warm-up: the sampler could not follow the posterior's curvature somewhere, and the draws may miss that region; look at where they occur, or reparametrise"
+        ));
+    }
     if chains
         .iter()
         .any(|c| c.termination == Termination::Interrupted)
@@ -528,6 +534,13 @@ pub struct ChainWire {
     /// Set when the chain was stranded and restarted from another halfway through warm-up.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub restarted_from: Option<super::sampler::Restart>,
+    /// Divergent trajectories after warm-up (`sampler: nuts`; left out when 0).
+    #[serde(default, skip_serializing_if = "is_zero")]
+    pub divergences: usize,
+}
+
+fn is_zero(n: &usize) -> bool {
+    *n == 0
 }
 
 /// Sampler settings in the record.
@@ -631,6 +644,9 @@ impl PosteriorBody {
                     SamplerChoice::Ensemble => {
                         "affine-invariant ensemble (stretch move, a = 2); one chain per walker"
                     }
+                    SamplerChoice::Nuts => {
+                        "No-U-Turn Hamiltonian Monte Carlo, step size and dense metric tuned in warm-up"
+                    }
                 }
                 .into(),
                 chains: chains.len(),
@@ -662,6 +678,7 @@ impl PosteriorBody {
                     step_scale: c.step_scale,
                     termination: c.termination,
                     restarted_from: c.restarted_from,
+                    divergences: c.divergences,
                 })
                 .collect(),
             n_draws: s.n_draws,

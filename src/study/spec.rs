@@ -569,6 +569,9 @@ pub enum SamplerChoice {
     /// The affine-invariant ensemble sampler with the stretch move (Goodman & Weare
     /// 2010); every walker is reported as a chain.
     Ensemble,
+    /// The No-U-Turn sampler (Hoffman & Gelman 2014): Hamiltonian Monte Carlo with the
+    /// gradient of the surrogate-based log posterior, one chain per `chains`.
+    Nuts,
 }
 
 fn default_chains() -> usize {

@@ -870,6 +870,9 @@ pub fn parse(
             format!("{} draws per chain are too few (at least 10)", cal.draws),
         );
     }
+    if cal.sampler == SamplerChoice::Nuts {
+        check_gradient_available(&mut c, &spec);
+    }
     if let Some(w) = cal.walkers {
         let dim = spec.parameters.len();
         if w < 4 || w % 2 != 0 || w <= dim {
@@ -1029,6 +1032,47 @@ pub fn parse(
             discrepancy,
         },
     })
+}
+
+/// `sampler: nuts` follows the gradient of the log posterior; what has none is refused
+/// here rather than after the runs.
+fn check_gradient_available(c: &mut Checker<'_>, spec: &StudySpec) {
+    if !spec.controls.is_empty() {
+        c.err(
+            "calibration.sampler",
+            "`nuts` is not available yet for studies with `controls` (the field emulator has no gradient): use `adaptive_metropolis`",
+        );
+    }
+    let Some(d) = &spec.calibration.discrepancy else {
+        return;
+    };
+    let curves = spec.simulator.output.x.is_some() || !spec.controls.is_empty();
+    let sd_fixed = matches!(d.sd, Some(DiscrepancySdSpec::Fixed(_)));
+    let ls_fixed = !curves || matches!(d.length_scale, Some(LengthScaleSpec::Fixed(_)));
+    // With `hyperparameters: map` they are fixed (at the posterior mode) while θ is
+    // sampled.
+    let fixed = (sd_fixed && ls_fixed) || d.hyperparameters == HyperparameterMode::Map;
+    if !fixed {
+        c.err(
+            "calibration.sampler",
+            "`nuts` needs the discrepancy's hyperparameters fixed (`sd: {fixed: v}`, and `length_scale: {fixed: v}` for curves, or all of them at their posterior mode with `hyperparameters: map`); sampled ones have no gradient yet: use `adaptive_metropolis`",
+        );
+    }
+    let with_discrepancy = |name: &str| {
+        d.experiments
+            .as_ref()
+            .is_none_or(|names| names.iter().any(|n| n == name))
+    };
+    if spec
+        .experiments
+        .iter()
+        .any(|e| with_discrepancy(&e.name) && matches!(e.noise, NoiseSpec::Unknown { .. }))
+    {
+        c.err(
+            "calibration.sampler",
+            "`nuts` does not yet handle an unknown noise variance together with a discrepancy: give the noise sd, or use `adaptive_metropolis`",
+        );
+    }
 }
 
 /// One check per invariant of `calibration.discrepancy`.

@@ -13,7 +13,7 @@
 
 use super::kernel::Kernel;
 use super::SurrogateError;
-use ndarray::{Array1, Array2, ArrayView1, ArrayView2};
+use ndarray::{Array1, Array2, ArrayView1, ArrayView2, ShapeBuilder};
 use ndarray_linalg::{
     CholeskyFactorized, Diag, FactorizeC, InverseC, SolveC, SolveTriangular, UPLO,
 };
@@ -111,6 +111,18 @@ pub struct Gp {
     pub ln_marginal_likelihood: f64,
     /// Extra diagonal jitter that was needed to factor K (0 when none).
     pub jitter: f64,
+    /// 1/ℓ_d², kept for prediction.
+    inv_l2: Vec<f64>,
+    /// Lᵀ column-major, made at the first prediction with a gradient (the second
+    /// triangular solve; LAPACK would copy a transposed view at every call).
+    l_t: std::sync::OnceLock<Array2<f64>>,
+}
+
+fn hyper_inv_l2(h: &Hyper) -> Vec<f64> {
+    h.ln_length_scales
+        .iter()
+        .map(|l| (-2.0 * l).exp())
+        .collect()
 }
 
 /// Largest jitter tried before giving up on a factorisation.
@@ -200,7 +212,10 @@ impl Gp {
         let k_inv = factor
             .invc()
             .map_err(|_| SurrogateError::NotPositiveDefinite { n, jitter })?;
-        let l = factor.factor.clone();
+        // Column-major, the layout LAPACK takes without a copy, for the triangular solves
+        // of every prediction.
+        let mut l = Array2::zeros((n, n).f());
+        l.assign(&factor.factor);
         let (a_inv, beta, ln_det_a) = if m > 0 {
             let a = h.t().dot(&k_inv_h);
             let fa = a
@@ -224,6 +239,7 @@ impl Gp {
             - 0.5 * ln_det_k
             - 0.5 * ln_det_a
             - 0.5 * (n - m) as f64 * (2.0 * std::f64::consts::PI).ln();
+        let hyper_copy = hyper.clone();
         Ok(Self {
             kernel,
             trend,
@@ -238,6 +254,8 @@ impl Gp {
             p_diag,
             ln_marginal_likelihood: lml,
             jitter,
+            inv_l2: hyper_inv_l2(&hyper_copy),
+            l_t: std::sync::OnceLock::new(),
         })
     }
 
@@ -398,6 +416,112 @@ impl Gp {
             }
         }
         grad
+    }
+
+    /// k(x, x_i) for every training point i and, when `with_grad`, ∂k(x, x_i)/∂x_d
+    /// (n × d): −σ² g(r_i) (x_d − x_id)/ℓ_d² ([`Kernel::neg_dcorr_over_r`]).
+    fn cross_cov(&self, x: ArrayView1<f64>, with_grad: bool) -> (Array1<f64>, Array2<f64>) {
+        let d = self.x.ncols();
+        let n = self.x.nrows();
+        assert_eq!(x.len(), d, "input of the wrong dimension");
+        let s2 = self.hyper.ln_signal_var.exp();
+        let mut k = Array1::zeros(n);
+        let mut dk = Array2::zeros(if with_grad { (n, d) } else { (0, 0) });
+        for (i, xi) in self.x.rows().into_iter().enumerate() {
+            let mut r2 = 0.0;
+            for dd in 0..d {
+                r2 += (x[dd] - xi[dd]).powi(2) * self.inv_l2[dd];
+            }
+            if with_grad {
+                let (rho, g) = self.kernel.corr_and_neg_d(r2.sqrt());
+                k[i] = s2 * rho;
+                for dd in 0..d {
+                    dk[[i, dd]] = -s2 * g * (x[dd] - xi[dd]) * self.inv_l2[dd];
+                }
+            } else {
+                k[i] = s2 * self.kernel.corr(r2.sqrt());
+            }
+        }
+        (k, dk)
+    }
+
+    /// Predictive mean and variance at one input `x` (unit box): [`Self::predict`] for a
+    /// single point, without the batch's temporaries (the calibration's inner loop).
+    pub fn predict_point(&self, x: ArrayView1<f64>) -> (f64, f64) {
+        let (k, _) = self.cross_cov(x, false);
+        let h = self.trend.basis_row(x);
+        let v = self
+            .l
+            .solve_triangular(UPLO::Lower, Diag::NonUnit, &k)
+            .expect("triangular solve with a Cholesky factor of positive diagonal");
+        let mean = h.dot(&self.beta) + k.dot(&self.alpha);
+        let mut var = self.hyper.ln_signal_var.exp() - v.dot(&v);
+        if !self.beta.is_empty() {
+            let r = &h - &self.k_inv_h.t().dot(&k);
+            var += r.dot(&self.a_inv.dot(&r));
+        }
+        (mean, var.max(0.0))
+    }
+
+    /// Predictive mean and variance at one input `x` (unit box) with their gradients
+    /// with respect to `x`: (m, v, ∂m/∂x, ∂v/∂x).
+    ///
+    /// # Formula
+    /// With k_i = σ² ρ(r_i), ∂k_i/∂x_d = −σ² g(r_i) (x_d − x_id)/ℓ_d² (as in
+    /// [`Self::mean_gradient`]), q = K⁻¹k* and R = h* − HᵀK⁻¹k*:
+    /// ∂m/∂x_d = ∂h*ᵀβ̂/∂x_d + αᵀ ∂k*/∂x_d;
+    /// ∂v/∂x_d = −2 qᵀ ∂k*/∂x_d + 2 Rᵀ A⁻¹ (∂h*/∂x_d − (K⁻¹H)ᵀ ∂k*/∂x_d),
+    /// differentiating R&W eqs. 2.41–2.42 (k** = σ² does not depend on x). Where the
+    /// variance is clamped at 0 (round-off) its gradient is 0.
+    ///
+    /// # Panics
+    /// If `x` has the wrong length.
+    pub fn predict_with_gradient(
+        &self,
+        x: ArrayView1<f64>,
+    ) -> (f64, f64, Array1<f64>, Array1<f64>) {
+        let d = self.x.ncols();
+        let (k, dk) = self.cross_cov(x, true);
+        let h = self.trend.basis_row(x);
+        let v = self
+            .l
+            .solve_triangular(UPLO::Lower, Diag::NonUnit, &k)
+            .expect("triangular solve with a Cholesky factor of positive diagonal");
+        let l_t = self.l_t.get_or_init(|| {
+            let mut u = Array2::zeros(self.l.raw_dim().f());
+            u.assign(&self.l.t());
+            u
+        });
+        let q = l_t
+            .solve_triangular(UPLO::Upper, Diag::NonUnit, &v)
+            .expect("triangular solve with a Cholesky factor of positive diagonal");
+        let mean = h.dot(&self.beta) + k.dot(&self.alpha);
+        let mut dmean = self.alpha.dot(&dk);
+        if self.trend == Trend::Linear {
+            for dd in 0..d {
+                dmean[dd] += self.beta[dd + 1];
+            }
+        }
+        let mut var = self.hyper.ln_signal_var.exp() - v.dot(&v);
+        let mut dvar = q.dot(&dk) * -2.0;
+        if !self.beta.is_empty() {
+            let r = &h - &self.k_inv_h.t().dot(&k);
+            let ar = self.a_inv.dot(&r);
+            var += r.dot(&ar);
+            // ∂R/∂x_d = ∂h/∂x_d − (K⁻¹H)ᵀ ∂k/∂x_d; Rᵀ A⁻¹ (K⁻¹H)ᵀ ∂k = ((K⁻¹H) A⁻¹R)ᵀ ∂k.
+            let w = self.k_inv_h.dot(&ar);
+            dvar = dvar - w.dot(&dk) * 2.0;
+            if self.trend == Trend::Linear {
+                for dd in 0..d {
+                    dvar[dd] += 2.0 * ar[dd + 1];
+                }
+            }
+        }
+        if var <= 0.0 {
+            var = 0.0;
+            dvar.fill(0.0);
+        }
+        (mean, var, dmean, dvar)
     }
 
     /// Leave-one-out predictive means and variances of the training outputs `y`.

@@ -29,7 +29,7 @@ pub use holdout::{mahalanobis, mahalanobis_reference, Holdout, MahalanobisCheck}
 pub use kernel::Kernel;
 pub use model::{
     fit_surrogate, hyperprior_of, min_runs, pick_holdout, ComponentModel, ExperimentModel,
-    FittedSurrogate, LowRankPrediction, OutputModel, MIN_RUNS,
+    FittedSurrogate, LowRankGradient, LowRankPrediction, OutputModel, MIN_RUNS,
 };
 pub use validation::{Validation, ZSummary};
 pub use wire::SurrogateBody;

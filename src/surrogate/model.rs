@@ -116,6 +116,17 @@ impl LowRankPrediction {
     }
 }
 
+/// Derivatives of a [`LowRankPrediction`] with respect to the parameters θ (d of them).
+#[derive(Debug, Clone, PartialEq)]
+pub struct LowRankGradient {
+    /// ∂mean_j/∂θ_l (p × d).
+    pub mean: Array2<f64>,
+    /// ∂weight_var_k/∂θ_l (K × d).
+    pub weight_var: Array2<f64>,
+    /// ∂diag_j/∂θ_l (p × d); `None` when the diagonal does not depend on θ.
+    pub diag: Option<Array2<f64>>,
+}
+
 /// The surrogate of one experiment.
 #[derive(Debug, Clone)]
 pub struct ExperimentModel {
@@ -188,9 +199,9 @@ impl ExperimentModel {
         let mut w = Array1::zeros(k);
         let mut v = Vec::with_capacity(k);
         for (c, comp) in self.components.iter().enumerate() {
-            let (m, var) = comp.gp.predict(u.view());
-            w[c] = m[0];
-            v.push(var[0]);
+            let (m, var) = comp.gp.predict_point(u.row(0));
+            w[c] = m;
+            v.push(var);
         }
         LowRankPrediction {
             mean: self.basis.reconstruct(&w),
@@ -198,6 +209,48 @@ impl ExperimentModel {
             weight_var: v,
             diag: self.basis.discarded.clone(),
         }
+    }
+
+    /// [`Self::predict_low_rank`] with its derivatives with respect to θ.
+    ///
+    /// # Formula
+    /// μ = ȳ + B w(u), u_l = (θ_l − lo_l)/(hi_l − lo_l): ∂μ/∂θ_l = Σ_k B_jk ∂m_k/∂u_l /
+    /// (hi_l − lo_l) and ∂v_k/∂θ_l = ∂v_k/∂u_l / (hi_l − lo_l), with the component GPs'
+    /// gradients from [`Gp::predict_with_gradient`]; the discarded variance is constant.
+    pub fn predict_low_rank_with_gradient(
+        &self,
+        theta: &[f64],
+    ) -> (LowRankPrediction, LowRankGradient) {
+        let u = self.unit(theta);
+        let k = self.components.len();
+        let d = theta.len();
+        let mut w = Array1::zeros(k);
+        let mut v = Vec::with_capacity(k);
+        let mut dw = Array2::zeros((k, d));
+        let mut dv = Array2::zeros((k, d));
+        for (c, comp) in self.components.iter().enumerate() {
+            let (m, var, gm, gv) = comp.gp.predict_with_gradient(u.row(0));
+            w[c] = m;
+            v.push(var);
+            for l in 0..d {
+                let span = self.hi[l] - self.lo[l];
+                dw[[c, l]] = gm[l] / span;
+                dv[[c, l]] = gv[l] / span;
+            }
+        }
+        (
+            LowRankPrediction {
+                mean: self.basis.reconstruct(&w),
+                basis: self.basis_out.clone(),
+                weight_var: v,
+                diag: self.basis.discarded.clone(),
+            },
+            LowRankGradient {
+                mean: self.basis_out.dot(&dw),
+                weight_var: dv,
+                diag: None,
+            },
+        )
     }
 
     /// Surrogate mean and marginal variance of every output value at `theta`.
