@@ -59,7 +59,7 @@ pub enum Command {
     Fit(StudyArg),
     /// Sample the posterior against the field data (posterior.yaml, posterior-samples.csv).
     #[command(
-        after_help = "Example:\n  assay calibrate models/cantilever/study.yaml\n\nThe likelihood counts the measurement noise, the surrogate's predictive covariance and,\nwith calibration.discrepancy, a Gaussian-process model discrepancy over the curve's x\nwhose sd and length-scale are sampled (or fixed) and reported (see docs/methods.md).\nCtrl-C stops sampling and keeps the draws made so far (recorded as interrupted)."
+        after_help = "Example:\n  assay calibrate models/cantilever/study.yaml\n\nThe likelihood counts the measurement noise, the surrogate's predictive covariance and,\nwith calibration.discrepancy, a Gaussian-process model discrepancy over the curve's x\nwhose sd and length-scale are sampled, fixed at given values, or (hyperparameters: map)\nfixed at the joint posterior mode found before sampling; all are reported (see\ndocs/methods.md).\nCtrl-C stops sampling and keeps the draws made so far (recorded as interrupted)."
     )]
     Calibrate(StudyArg),
     /// Posterior predictive checks against the field data (checks.yaml): does the calibrated model reproduce them?

@@ -6,7 +6,8 @@
 
 use crate::audit::{self, Freshness};
 use crate::calibrate::{
-    sample, summarize, Discrepancy, Emulator, ExperimentLikelihood, HyperKind, LogPosterior,
+    find_map, sample, summarize, with_fixed_discrepancy, Discrepancy, Emulator,
+    ExperimentLikelihood, FixedAt, Hyper, HyperKind, HyperSummary, LogPosterior, MapParams,
     PosteriorBody, PosteriorSummary, SamplerParams,
 };
 use crate::design::{self, Design, DesignBody};
@@ -15,7 +16,7 @@ use crate::record::{
     read_record, sha256_file, write_atomic, write_record, ProvenanceClock, Record,
 };
 use crate::runs::{self, RunOptions, RunState, RunSummary, StateCounts};
-use crate::study::Study;
+use crate::study::{HyperparameterMode, Study};
 use crate::surrogate::{fit_surrogate, FittedSurrogate, SurrogateBody, Validation};
 use anyhow::{bail, Context, Result};
 use std::collections::BTreeMap;
@@ -564,28 +565,57 @@ pub fn calibrate_stage(
             }
         }
     }
-    let mut post =
-        LogPosterior::new(c.study.parameters.clone(), experiments).with_start_candidates(&starts);
+    let mut mvn = None;
     if let Some(path) = &cal.prior_from {
         let samples = path.with_file_name("posterior-samples.csv");
         clock.input_named(&path.display().to_string(), path)?;
         clock.input_named(&samples.display().to_string(), &samples)?;
-        let (mvn, used, outside) = prior_from_draws(&c.study, &samples)?;
+        let (prior, used, outside) = prior_from_draws(&c.study, &samples)?;
         if outside > 0 {
             observer.note(&format!(
                 "prior_from: {outside} of {} earlier draws lie outside this study's ranges and were left out",
                 used + outside
             ));
         }
-        post = post.with_mvn_prior(mvn);
+        mvn = Some(prior);
     }
+    let build = |experiments| {
+        let post = LogPosterior::new(c.study.parameters.clone(), experiments)
+            .with_start_candidates(&starts);
+        match &mvn {
+            Some(prior) => post.with_mvn_prior(prior.clone()),
+            None => post,
+        }
+    };
+    // `hyperparameters: map`: find the joint posterior mode with the hyperparameters
+    // under their priors, then sample with them fixed there.
+    let full = build(experiments);
+    let at_map = cal
+        .discrepancy
+        .as_ref()
+        .is_some_and(|d| d.hyperparameters == HyperparameterMode::Map)
+        && full.n_discrepancy() > 0;
+    let (post, searched) = if at_map {
+        observer.note(&format!(
+            "discrepancy hyperparameters: finding the joint posterior mode ({} starts)",
+            MapParams::new(cal.seed).n_starts
+        ));
+        let est = find_map(&full, &MapParams::new(cal.seed))?;
+        let fixed = build(with_fixed_discrepancy(&full, &est.x));
+        (fixed, Some((full, est)))
+    } else {
+        (full, None)
+    };
     if params.kind == crate::study::spec::SamplerChoice::Nuts && !post.has_gradient() {
         bail!("`calibration.sampler: nuts` needs the gradient of every part of the log posterior, and this study has a part without one: use `adaptive_metropolis`");
     }
     let chains = sample(&post, &params, stop, observer);
     let names = c.study.parameter_names();
     let noise_names = post.noise_names();
-    let summary = summarize(&names, &noise_names, &chains).with_discrepancy(&post, &chains);
+    let mut summary = summarize(&names, &noise_names, &chains).with_discrepancy(&post, &chains);
+    if let Some((full, est)) = &searched {
+        summary = summary.with_map(full, est);
+    }
     let discrepancy_labels = post.discrepancy_labels();
     let n_eval = post
         .n_evaluations
@@ -650,19 +680,75 @@ pub fn discrepancy_of(study: &Study, e: &crate::study::Experiment) -> Option<Dis
     })
 }
 
-/// The discrepancy sd of each output quantity of `e` at each of `rows` (thinned sample
-/// rows): the `discrepancy_sd.<experiment>.<quantity>` columns when sampled, the fixed
-/// value otherwise; `None` without a discrepancy.
+/// The model discrepancy of `e` as it was calibrated: [`discrepancy_of`], and with
+/// `hyperparameters: map` each hyperparameter that has a prior fixed at the value
+/// `posterior` records for it (`fixed_at: map`).
 ///
 /// # Errors
-/// A sampled sd without its column in the samples.
+/// With `hyperparameters: map`, a record without that value (made before the study
+/// asked for it).
+pub fn discrepancy_as_calibrated(
+    study: &Study,
+    e: &crate::study::Experiment,
+    posterior: &PosteriorBody,
+) -> Result<Option<Discrepancy>> {
+    let Some(mut d) = discrepancy_of(study, e) else {
+        return Ok(None);
+    };
+    let at_map = study
+        .calibration
+        .discrepancy
+        .as_ref()
+        .is_some_and(|p| p.hyperparameters == HyperparameterMode::Map);
+    if !at_map {
+        return Ok(Some(d));
+    }
+    let recorded = posterior.discrepancy.get(&e.name);
+    for b in &mut d.blocks {
+        let rec = recorded.and_then(|m| m.get(&b.quantity));
+        let value = |h: Option<&HyperSummary>, what: &str| -> Result<Hyper> {
+            match h {
+                Some(HyperSummary {
+                    value: Some(v),
+                    fixed_at: Some(FixedAt::Map),
+                    ..
+                }) => Ok(Hyper::Fixed(*v)),
+                _ => Err(InputError(format!(
+                    "{POSTERIOR_FILE} has no posterior-mode value of the discrepancy {what} of {}.{} (`hyperparameters: map`): run `assay calibrate` again",
+                    e.name, b.quantity
+                ))
+                .into()),
+            }
+        };
+        if b.sd.is_sampled() {
+            b.sd = value(rec.map(|r| &r.sd), "sd")?;
+        }
+        if b.length_scale.is_some_and(|l| l.is_sampled()) {
+            b.length_scale = Some(value(
+                rec.and_then(|r| r.length_scale.as_ref()),
+                "length-scale",
+            )?);
+        }
+    }
+    Ok(Some(d))
+}
+
+/// The discrepancy sd of each output quantity of `e` at each of `rows` (thinned sample
+/// rows): the `discrepancy_sd.<experiment>.<quantity>` columns when sampled, the fixed
+/// value (given, or the posterior mode `posterior` records) otherwise; `None` without a
+/// discrepancy.
+///
+/// # Errors
+/// A sampled sd without its column in the samples; a posterior-mode value missing from
+/// `posterior`.
 fn discrepancy_sd_draws<R: AsRef<[f64]>>(
     study: &Study,
     e: &crate::study::Experiment,
+    posterior: &PosteriorBody,
     samples: &crate::report::compute::Samples,
     rows: &[R],
 ) -> Result<Option<Vec<Vec<f64>>>> {
-    let Some(d) = discrepancy_of(study, e) else {
+    let Some(d) = discrepancy_as_calibrated(study, e, posterior)? else {
         return Ok(None);
     };
     let n_q = study.simulator.output.y.len();
@@ -676,7 +762,7 @@ fn discrepancy_sd_draws<R: AsRef<[f64]>>(
             .position(|n| *n == b.quantity)
             .expect("blocks are named after the study's quantities");
         match b.sd {
-            crate::calibrate::Hyper::Fixed(v) => out.iter_mut().for_each(|r| r[q] = v),
+            Hyper::Fixed(v) => out.iter_mut().for_each(|r| r[q] = v),
             _ => {
                 let name = format!(
                     "{}.{}.{}",
@@ -751,7 +837,7 @@ fn model_of<'a>(
 pub fn check_stage(c: &Campaign, confirm: Option<Confirm<'_>>) -> Result<crate::check::ChecksBody> {
     use crate::check::{check_experiment, ChecksBody};
     let surrogate: Record<SurrogateBody> = read_stage_record(c, SURROGATE_FILE, "fit")?;
-    let _posterior: Record<PosteriorBody> = read_stage_record(c, POSTERIOR_FILE, "calibrate")?;
+    let posterior: Record<PosteriorBody> = read_stage_record(c, POSTERIOR_FILE, "calibrate")?;
     let fitted = surrogate.body.to_fitted()?;
     let (samples, rows, draws) = posterior_draws(c)?;
     let path = c.path(SAMPLES_FILE);
@@ -770,7 +856,7 @@ pub fn check_stage(c: &Campaign, confirm: Option<Confirm<'_>>) -> Result<crate::
             .map(|j| rows.iter().map(|r| r[j]).collect());
         // Streams past those of the chains: the checks never share random numbers with
         // the sampler.
-        let disc = discrepancy_sd_draws(&c.study, e, &samples, &rows)?;
+        let disc = discrepancy_sd_draws(&c.study, e, &posterior.body, &samples, &rows)?;
         let mut rng = crate::rng::stream(seed, CHECK_STREAM_BASE + k as u64);
         let predictive = crate::check::DrawnVariances {
             noise_sd: noise.as_deref(),
@@ -1176,7 +1262,7 @@ pub fn report_stage(c: &Campaign, out: &Path) -> Result<()> {
             let noise: Option<Vec<f64>> = samples
                 .column(&format!("noise_sd.{}", e.name))
                 .map(|j| rows.iter().map(|r| r[j]).collect());
-            let disc = match discrepancy_sd_draws(&c.study, e, &samples, &rows) {
+            let disc = match discrepancy_sd_draws(&c.study, e, &rec.body, &samples, &rows) {
                 Ok(d) => d,
                 Err(err) => {
                     notes.push(format!("{}: {err}", e.name));

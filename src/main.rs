@@ -376,11 +376,29 @@ fn print_posterior(c: &Campaign) -> Result<()> {
                         dg.ess_bulk,
                         dg.ess_tail
                     ),
-                    (_, _, Some(v)) => out!("  {:<10} {:<9} {:>11} (fixed)", what, label, sig(v, 5)),
+                    (_, _, Some(v)) => out!(
+                        "  {:<10} {:<9} {:>11} ({})",
+                        what,
+                        label,
+                        sig(v, 5),
+                        if h.fixed_at.is_some() {
+                            "fixed at the joint posterior mode"
+                        } else {
+                            "fixed"
+                        }
+                    ),
                     _ => {}
                 }
             }
         }
+    }
+    if let Some(m) = &b.discrepancy_map {
+        out!(
+            "  discrepancy hyperparameters fixed at the joint posterior mode: log posterior {} there ({} starts, {} evaluations)",
+            sig(m.ln_posterior, 8),
+            m.starts.len(),
+            m.n_evaluations
+        );
     }
     for w in &b.warnings {
         out!("  warning: {w}");

@@ -1,5 +1,6 @@
 //! Calibration options through the command line: the ensemble sampler with
-//! `until_converged`, and `prior_from` chaining two campaigns (DESIGN.md "Records").
+//! `until_converged`, `prior_from` chaining two campaigns (DESIGN.md "Records"), and the
+//! model discrepancy with its hyperparameters sampled or fixed at their posterior mode.
 
 mod common;
 
@@ -112,6 +113,8 @@ struct HyperRecord {
     posterior: Option<MarginalRecord>,
     #[serde(default)]
     diagnostics: Option<DiagnosticsRecord>,
+    #[serde(default)]
+    fixed_at: Option<String>,
 }
 
 #[derive(Debug, Deserialize)]
@@ -223,6 +226,162 @@ fn discrepancy_is_sampled_reported_and_widens_the_predictive_checks() {
         samples.lines().next().unwrap(),
         "chain,draw,A,B,discrepancy_sd.bench.y,discrepancy_length_scale.bench.y,log_posterior"
     );
+    let html = env.read("runs/tsim/report.html");
+    assert!(html.contains("<h3>Model discrepancy</h3>") && html.contains("<td>sampled</td>"));
     let study = env.path("study.yaml");
     env.assay(["verify"]).arg(&study).assert().success();
+}
+
+#[derive(Debug, Deserialize)]
+struct MapStartRecord {
+    ln_posterior: f64,
+    termination: String,
+    n_runs: usize,
+}
+
+#[derive(Debug, Deserialize)]
+struct DiscrepancyMapRecord {
+    method: String,
+    ln_posterior: f64,
+    parameters: BTreeMap<String, f64>,
+    starts: Vec<MapStartRecord>,
+    best_start: usize,
+    n_evaluations: u64,
+}
+
+#[derive(Debug, Deserialize)]
+struct SettingsRecord {
+    likelihood: String,
+}
+
+#[derive(Debug, Deserialize)]
+struct PosteriorWithMap {
+    discrepancy: BTreeMap<String, BTreeMap<String, DiscrepancyRecord>>,
+    discrepancy_map: DiscrepancyMapRecord,
+    settings: SettingsRecord,
+}
+
+/// `hyperparameters: map` end to end: `assay all` finds the joint posterior mode, samples
+/// the parameters with the discrepancy's sd and length-scale fixed there, records the
+/// values with `fixed_at: map` and the mode's log posterior (decoded with this test's
+/// own structs), writes no hyperparameter columns, shows the values in the terminal, and
+/// `assay verify` accepts the chain; going back to `sampled` makes the posterior stale.
+#[test]
+fn discrepancy_hyperparameters_fixed_at_their_mode_are_recorded_and_verified() {
+    let env = Env::new();
+    let text = edit(
+        &env.minimal_study("ok"),
+        "warmup: 100, draws: 100, seed: 3}",
+        "warmup: 1000, draws: 1000, seed: 3, discrepancy: {sd: {half_normal: {scale: 0.3}}, hyperparameters: map}}",
+    );
+    let study = env.write_study_text(&text);
+    let out = env.assay(["all"]).arg(&study).output().unwrap();
+    let stdout = String::from_utf8_lossy(&out.stdout).to_string();
+    assert!(
+        out.status.success(),
+        "{stdout}\n{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    assert!(
+        stdout.contains("(fixed at the joint posterior mode)")
+            && stdout.contains(
+                "discrepancy hyperparameters fixed at the joint posterior mode: log posterior"
+            ),
+        "{stdout}"
+    );
+    let text = env.read("runs/tsim/posterior.yaml");
+    let p: PosteriorWithMap = serde_yaml::from_str(&text).unwrap_or_else(|e| panic!("{e}\n{text}"));
+    let d = &p.discrepancy["bench"]["y"];
+    assert_eq!(d.sd.prior, "half_normal(scale 0.3)");
+    assert_eq!(d.sd.fixed_at.as_deref(), Some("map"));
+    assert!(d.sd.value.is_some_and(|v| v > 0.0), "{text}");
+    assert!(d.sd.posterior.is_none() && d.sd.diagnostics.is_none());
+    let ell = d.length_scale.as_ref().expect("a curve has a length-scale");
+    assert!(ell.prior.starts_with("lognormal(mu "), "{}", ell.prior);
+    assert_eq!(ell.fixed_at.as_deref(), Some("map"));
+    assert!(ell.value.is_some_and(|v| v > 0.0));
+    let m = &p.discrepancy_map;
+    assert!(
+        m.method
+            .starts_with("maximum of the joint posterior density"),
+        "{}",
+        m.method
+    );
+    assert!(m.ln_posterior.is_finite());
+    assert!((0.0..=1.0).contains(&m.parameters["A"]) && (1.0..=2.0).contains(&m.parameters["B"]));
+    assert_eq!(m.starts.len(), 8);
+    assert!(m.best_start < m.starts.len());
+    // The mode is the best end point of the starts.
+    let best = m
+        .starts
+        .iter()
+        .map(|s| s.ln_posterior)
+        .fold(f64::NEG_INFINITY, f64::max);
+    assert_eq!(m.starts[m.best_start].ln_posterior, best);
+    assert_eq!(m.ln_posterior, best);
+    for s in &m.starts {
+        assert!(
+            ["converged", "max_iterations"].contains(&s.termination.as_str()),
+            "{}",
+            s.termination
+        );
+        assert!(s.n_runs >= 1);
+    }
+    assert!(m.n_evaluations > 0);
+    assert!(
+        p.settings
+            .likelihood
+            .ends_with("its hyperparameters fixed at the joint posterior mode"),
+        "{}",
+        p.settings.likelihood
+    );
+    let samples = env.read("runs/tsim/posterior-samples.csv");
+    assert_eq!(
+        samples.lines().next().unwrap(),
+        "chain,draw,A,B,log_posterior"
+    );
+    // The report's discrepancy table says how they were fixed.
+    let html = env.read("runs/tsim/report.html");
+    assert!(
+        html.contains("<h3>Model discrepancy</h3>")
+            && html.contains("<td>fixed at the joint posterior mode</td>")
+            && html.contains("Their uncertainty is not carried into the posterior"),
+        "the report's discrepancy section"
+    );
+    env.assay(["verify"]).arg(&study).assert().success();
+    // Back to sampled hyperparameters: the posterior is made again.
+    let text = env.read("study.yaml").replace(", hyperparameters: map", "");
+    env.write("study.yaml", &text);
+    let out = env.assay(["all"]).arg(&study).output().unwrap();
+    assert!(out.status.success());
+    assert!(!String::from_utf8_lossy(&out.stdout).contains("posterior: up to date"));
+    let samples = env.read("runs/tsim/posterior-samples.csv");
+    assert!(samples.starts_with("chain,draw,A,B,discrepancy_sd.bench.y,"));
+}
+
+/// `sampler: nuts` with `hyperparameters: map`: the study is accepted (sampled
+/// hyperparameters would be refused, having no gradient yet) and the No-U-Turn sampler
+/// runs with the hyperparameters fixed at the mode.
+#[test]
+fn nuts_samples_with_the_hyperparameters_fixed_at_their_mode() {
+    let env = Env::new();
+    let text = edit(
+        &env.minimal_study("ok"),
+        "warmup: 100, draws: 100, seed: 3}",
+        "warmup: 300, draws: 300, seed: 3, sampler: nuts, discrepancy: {hyperparameters: map}}",
+    );
+    let study = env.write_study_text(&text);
+    let out = env.assay(["all"]).arg(&study).output().unwrap();
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let text = env.read("runs/tsim/posterior.yaml");
+    let p: PosteriorWithMap = serde_yaml::from_str(&text).unwrap_or_else(|e| panic!("{e}\n{text}"));
+    assert_eq!(
+        p.discrepancy["bench"]["y"].sd.fixed_at.as_deref(),
+        Some("map")
+    );
+    assert!(text.contains("No-U-Turn"), "{text}");
 }

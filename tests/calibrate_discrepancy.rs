@@ -149,6 +149,12 @@ fn discrepancy_settings_parse_in_each_form() {
         "  discrepancy: {}\n",
         "  discrepancy:\n    kernel: matern52\n    sd: {fixed: 0.2}\n    length_scale: {fixed: 0.5}\n",
         "  discrepancy:\n    sd: {half_normal: {scale: 0.1}}\n    length_scale: {lognormal: {mu: -1, sigma: 0.5}}\n    experiments: [e]\n",
+        "  discrepancy: {hyperparameters: map}\n",
+        "  discrepancy: {hyperparameters: sampled}\n",
+        "  discrepancy: {sd: {fixed: 0.2}, hyperparameters: map}\n",
+        // At the mode the hyperparameters are fixed while θ is sampled: NUTS has its
+        // gradient.
+        "  sampler: nuts\n  discrepancy: {hyperparameters: map}\n",
     ] {
         assert_eq!(study_errors("x: x, ", block), Vec::<String>::new(), "{block}");
     }
@@ -197,6 +203,16 @@ fn discrepancy_settings_are_checked_one_invariant_at_a_time() {
             "  discrepancy:\n    experiments: []\n",
             "11: calibration.discrepancy.experiments: name at least one experiment (or leave the key out for every experiment)",
         ),
+        (
+            "x: x, ",
+            "  discrepancy:\n    sd: {fixed: 0.2}\n    length_scale: {fixed: 0.5}\n    hyperparameters: map\n",
+            "13: calibration.discrepancy.hyperparameters: `map` needs a hyperparameter to estimate, but `sd` and `length_scale` are both fixed: give one of them a prior or leave `hyperparameters` out",
+        ),
+        (
+            "",
+            "  discrepancy:\n    sd: {fixed: 0.2}\n    hyperparameters: map\n",
+            "12: calibration.discrepancy.hyperparameters: `map` needs a hyperparameter to estimate, but `sd` is fixed and scalar outputs have no length-scale: give `sd` a prior (`{half_normal: {scale: s}}`) or leave `hyperparameters` out",
+        ),
     ];
     for (output, block, want) in cases {
         assert_eq!(
@@ -210,6 +226,10 @@ fn discrepancy_settings_are_checked_one_invariant_at_a_time() {
     assert_eq!(e.len(), 1);
     assert!(e[0].starts_with("11: calibration.discrepancy"), "{e:?}");
     assert!(e[0].contains("unknown"), "{e:?}");
+    assert_eq!(
+        study_errors("x: x, ", "  discrepancy:\n    hyperparameters: mode\n"),
+        ["11: calibration.discrepancy.hyperparameters: unknown variant `mode`, expected `sampled` or `map`"]
+    );
     assert_eq!(
         study_errors("x: x, ", "  discrepancy:\n    sd: {normal: 1}\n"),
         ["11: calibration.discrepancy: unknown sd form `normal`; expected `{fixed: v}` or `{half_normal: {scale: s}}`"]

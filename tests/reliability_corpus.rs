@@ -38,6 +38,8 @@ const CASES: &[(&str, &str)] = &[
     ("data-sd-column-missing", "study.yaml:23: experiments[0].data: ./field-A.csv:1: no column `sd` (columns: station, deflection)"),
     ("data-sd-column-nonpositive", "study.yaml:23: experiments[0].data: ./field-A.csv:3: sd `0` in column `sd` must be > 0"),
     ("data-text-in-number", "study.yaml:23: experiments[0].data: ./field-A.csv:3: `two` in column `deflection` is not a number"),
+    ("discrepancy-hyperparameters-unknown", "study.yaml:32: calibration.discrepancy.hyperparameters: unknown variant `mode`, expected `sampled` or `map`"),
+    ("discrepancy-map-nothing-to-estimate", "study.yaml:34: calibration.discrepancy.hyperparameters: `map` needs a hyperparameter to estimate, but `sd` and `length_scale` are both fixed: give one of them a prior or leave `hyperparameters` out"),
     ("design-one-point", "study.yaml:25: design.points: 1 points are too few (at least 2)"),
     ("empty-study-file", "study.yaml: the study file is empty (expected a mapping with at least `name`, `parameters`, `simulator` and `experiments`)"),
     ("env-name-injects-shell", "study.yaml:20: simulator.env.X;touch pwned;Y: `X;touch pwned;Y` is not a valid environment variable name (expected [A-Za-z_][A-Za-z0-9_]*)"),

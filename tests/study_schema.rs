@@ -123,6 +123,9 @@ fn cases(text: &str) -> Vec<(&'static str, String, bool)> {
         ("unknown discrepancy sd form", edit(text, "seed: 3}", "seed: 3, discrepancy: {sd: {normal: {mean: 0, sd: 1}}}}"), false),
         ("discrepancy sd with two forms", edit(text, "seed: 3}", "seed: 3, discrepancy: {sd: {fixed: 0.1, half_normal: {scale: 1}}}}"), false),
         ("unknown discrepancy kernel", edit(text, "seed: 3}", "seed: 3, discrepancy: {kernel: rbf}}"), false),
+        ("discrepancy hyperparameters at their mode", edit(text, "seed: 3}", "seed: 3, discrepancy: {hyperparameters: map}}"), true),
+        ("discrepancy hyperparameters sampled", edit(text, "seed: 3}", "seed: 3, discrepancy: {hyperparameters: sampled}}"), true),
+        ("unknown discrepancy hyperparameters mode", edit(text, "seed: 3}", "seed: 3, discrepancy: {hyperparameters: mode}}"), false),
     ]
 }
 

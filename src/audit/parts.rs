@@ -150,6 +150,10 @@ pub fn posterior_parts(study: &Study) -> BTreeMap<String, String> {
             "length_scale": format!("{:?}", d.length_scale),
             "experiments": d.experiments,
         });
+        // Only when not the default, so records made before the key existed stay fresh.
+        if d.hyperparameters != crate::study::HyperparameterMode::Sampled {
+            calibration["discrepancy"]["hyperparameters"] = json!(d.hyperparameters.name());
+        }
     }
     BTreeMap::from([
         ("parameters".into(), sha(&parameters_json(study, true))),

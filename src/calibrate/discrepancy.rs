@@ -78,6 +78,34 @@ impl Hyper {
         }
     }
 
+    /// The prior's quantile at probability `p` in (0, 1) (the fixed value when fixed).
+    ///
+    /// # Formula
+    /// half-normal: τ Φ⁻¹((1 + p)/2); lognormal: exp(μ + σ Φ⁻¹(p)).
+    pub fn quantile(&self, p: f64) -> f64 {
+        use statrs::distribution::{ContinuousCDF, Normal};
+        let z = |q: f64| {
+            Normal::new(0.0, 1.0)
+                .expect("the standard normal")
+                .inverse_cdf(q)
+        };
+        match *self {
+            Hyper::Fixed(v) => v,
+            Hyper::HalfNormal { scale } => scale * z(0.5 * (1.0 + p)),
+            Hyper::LogNormal { mu, sigma } => (mu + sigma * z(p)).exp(),
+        }
+    }
+
+    /// The prior's natural scale, around which a search for its mode is boxed: the
+    /// half-normal scale τ, the lognormal median e^μ, the fixed value itself.
+    pub fn reference(&self) -> f64 {
+        match *self {
+            Hyper::Fixed(v) => v,
+            Hyper::HalfNormal { scale } => scale,
+            Hyper::LogNormal { mu, .. } => mu.exp(),
+        }
+    }
+
     /// How the record names it: `fixed`, `half_normal(scale 0.1)`, `lognormal(mu -1, sigma 1)`.
     pub fn describe(&self) -> String {
         match *self {
@@ -325,6 +353,26 @@ impl Discrepancy {
             .collect()
     }
 
+    /// The same discrepancy with every sampled hyperparameter fixed at its value in
+    /// `values` (state order, as [`Self::resolve`]): what is sampled with θ once the
+    /// hyperparameters have been estimated (`hyperparameters: map`).
+    ///
+    /// # Panics
+    /// If `values` does not hold one value per sampled hyperparameter.
+    pub fn fixed_at(&self, values: &[f64]) -> Self {
+        assert_eq!(
+            values.len(),
+            self.n_sampled(),
+            "one value per sampled hyperparameter"
+        );
+        let mut out = self.clone();
+        for (b, (s, l)) in out.blocks.iter_mut().zip(self.resolve(values)) {
+            b.sd = Hyper::Fixed(s);
+            b.length_scale = l.map(Hyper::Fixed);
+        }
+        out
+    }
+
     /// Add the discrepancy covariance at `values` to `cov` (p × p).
     ///
     /// # Formula
@@ -374,6 +422,7 @@ mod tests {
             sd: Some(DiscrepancySdSpec::Fixed(2.0)),
             length_scale: Some(LengthScaleSpec::Fixed(0.5)),
             experiments: vec!["e".into()],
+            hyperparameters: Default::default(),
         };
         // Scalar output at T = 10, 30 (range [0, 40]: unit positions 0.25 and 0.75).
         let targets: Vec<Target> = [0usize, 1]
@@ -408,6 +457,43 @@ mod tests {
         assert!((cov[[1, 0]] - cov[[0, 1]]).abs() < 1e-15);
     }
 
+    /// Fixing the sampled hyperparameters at values leaves the covariance unchanged
+    /// and nothing sampled.
+    #[test]
+    fn fixed_at_keeps_the_covariance_and_samples_nothing() {
+        let d = Discrepancy {
+            kernel: Kernel::SquaredExponential,
+            blocks: vec![
+                DiscrepancyBlock {
+                    quantity: "a".into(),
+                    index: vec![0, 1, 2],
+                    x: Some(vec![0.0, 0.4, 1.0]),
+                    sd: Hyper::HalfNormal { scale: 1.0 },
+                    length_scale: Some(Hyper::Fixed(0.3)),
+                    at: None,
+                },
+                DiscrepancyBlock {
+                    quantity: "b".into(),
+                    index: vec![3],
+                    x: None,
+                    sd: Hyper::HalfNormal { scale: 2.0 },
+                    length_scale: None,
+                    at: None,
+                },
+            ],
+        };
+        let values = [0.7, 1.3];
+        let f = d.fixed_at(&values);
+        assert_eq!(f.n_sampled(), 0);
+        assert_eq!(f.blocks[0].sd, Hyper::Fixed(0.7));
+        assert_eq!(f.blocks[0].length_scale, Some(Hyper::Fixed(0.3)));
+        assert_eq!(f.blocks[1].sd, Hyper::Fixed(1.3));
+        let (mut a, mut b) = (Array2::zeros((4, 4)), Array2::zeros((4, 4)));
+        d.add_covariance(&values, &mut a);
+        f.add_covariance(&[], &mut b);
+        assert_eq!(a, b);
+    }
+
     #[test]
     fn priors_match_their_closed_forms() {
         // Half-normal scale 2 at v = 1: −1/8; lognormal(0, 1) at e: −1 − ½.
@@ -418,5 +504,11 @@ mod tests {
         };
         assert!((ln.ln_prior(std::f64::consts::E) + 1.5).abs() < 1e-15);
         assert_eq!(ln.ln_prior(0.0), f64::NEG_INFINITY);
+        // Quantiles: the half-normal's median is τ Φ⁻¹(¾) = 0.6744898 τ; the
+        // lognormal's median is e^μ and its 97.5 % point e^{μ + 1.959964 σ}.
+        let hn = Hyper::HalfNormal { scale: 2.0 };
+        assert!((hn.quantile(0.5) - 2.0 * 0.674_489_750_196_081_7).abs() < 1e-12);
+        assert!((ln.quantile(0.5) - 1.0).abs() < 1e-12);
+        assert!((ln.quantile(0.975) - 1.959_963_984_540_054f64.exp()).abs() < 1e-9);
     }
 }

@@ -2,6 +2,7 @@
 
 use super::diagnostics::{mcse_quantile, quantile_sorted, Diagnostics};
 use super::discrepancy::{Hyper, HyperKind};
+use super::map::{MapEstimate, MapStart, MapTermination};
 use super::posterior::LogPosterior;
 use super::sampler::{Chain, SamplerParams, Termination};
 use crate::study::spec::SamplerChoice;
@@ -72,11 +73,18 @@ pub struct NoiseMcse {
 /// The posterior, or the fixed value, of one model-discrepancy hyperparameter.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct HyperSummary {
-    /// `fixed`, or the prior it was sampled with (e.g. `half_normal(scale 0.1)`).
+    /// `fixed` (a value the study gives), or the prior it was sampled with, or estimated
+    /// under (e.g. `half_normal(scale 0.1)`).
     pub prior: String,
-    /// The value when fixed.
+    /// The value when fixed (given, or estimated: [`Self::fixed_at`]).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub value: Option<f64>,
+    /// How a fixed value other than the study's own was found: `map`, the joint
+    /// posterior mode (`hyperparameters: map`; [`DiscrepancyMap`]). Absent for a value the
+    /// study gives, for a sampled hyperparameter, and in records made before the key
+    /// existed.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub fixed_at: Option<FixedAt>,
     /// Marginal posterior when sampled.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub posterior: Option<Marginal>,
@@ -87,6 +95,50 @@ pub struct HyperSummary {
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub mcse_mean: Option<f64>,
 }
+
+/// How a discrepancy hyperparameter was fixed when the study did not give its value.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum FixedAt {
+    /// At the joint posterior mode of the parameters, noise variances and
+    /// hyperparameters, found before sampling.
+    Map,
+}
+
+/// The joint posterior mode that fixed the discrepancy hyperparameters
+/// (`hyperparameters: map`): where it is, how high, and how the search went. The
+/// hyperparameters' values are under `discrepancy` (`fixed_at: map`).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct DiscrepancyMap {
+    /// What was maximised and how.
+    pub method: String,
+    /// ln p(θ̂, σ̂², ŝ, ℓ̂ | y) + const at the mode, hyperparameter priors included
+    /// (normalising constants of the priors left out, as `log_posterior`).
+    pub ln_posterior: f64,
+    /// θ̂, the parameters at the joint mode (a by-product: the sampled posterior of θ
+    /// is summarised under `parameters`).
+    pub parameters: BTreeMap<String, f64>,
+    /// σ̂ at the joint mode, for experiments whose noise is estimated.
+    #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
+    pub noise_sd: BTreeMap<String, f64>,
+    /// Every start of the search, in order.
+    pub starts: Vec<MapStart>,
+    /// The start whose end point is the mode.
+    pub best_start: usize,
+    /// Evaluations of the log posterior by the search (starting candidates included);
+    /// not counted in the record's `n_evaluations`, which are the sampler's.
+    pub n_evaluations: u64,
+}
+
+/// A MAP of a discrepancy sd below this share of its prior's scale τ is reported as
+/// zero: δ is then below 10⁻⁴ of the measured values (τ is 0.1 × their largest mean by
+/// default), far below any noise. Our threshold, for the warning only.
+pub const SD_NEGLIGIBLE: f64 = 1e-3;
+/// A start of the MAP search that ends more than this many nats below the best is
+/// reported: it stopped at another local mode (starts that reach the same mode agree to
+/// about 10⁻⁸). Our threshold: a tenth of a nat is a density ratio of 0.9, small, but
+/// a second mode is worth knowing of when the hyperparameters are fixed at one.
+pub const MAP_SPREAD_WARN: f64 = 0.1;
 
 /// The discrepancy of one output quantity of one experiment.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -123,6 +175,9 @@ pub struct PosteriorSummary {
     /// Model discrepancy per (experiment, quantity), when the study has one
     /// ([`PosteriorSummary::with_discrepancy`]).
     pub discrepancy: Vec<(String, String, DiscrepancySummary)>,
+    /// The joint mode that fixed the discrepancy hyperparameters
+    /// ([`PosteriorSummary::with_map`]).
+    pub discrepancy_map: Option<DiscrepancyMap>,
     pub n_draws: usize,
     /// Warnings a reader must see (convergence, effective sample size).
     pub warnings: Vec<String>,
@@ -310,6 +365,7 @@ pub fn summarize(names: &[String], noise_names: &[String], chains: &[Chain]) -> 
         correlation,
         noise,
         discrepancy: Vec::new(),
+        discrepancy_map: None,
         n_draws,
         warnings,
     }
@@ -351,6 +407,7 @@ impl PosteriorSummary {
                         posterior: Some(m),
                         diagnostics: Some(diag),
                         mcse_mean: Some(m.sd / diag.ess_bulk.sqrt()),
+                        fixed_at: None,
                     }
                 } else {
                     let Hyper::Fixed(v) = h else {
@@ -362,6 +419,7 @@ impl PosteriorSummary {
                         posterior: None,
                         diagnostics: None,
                         mcse_mean: None,
+                        fixed_at: None,
                     }
                 };
                 match kind {
@@ -381,6 +439,86 @@ impl PosteriorSummary {
                 ));
             }
         }
+        self
+    }
+}
+
+impl PosteriorSummary {
+    /// Record that the discrepancy hyperparameters sampled in `searched` (the posterior
+    /// the mode was found for) were fixed at its mode `est` before sampling: each such
+    /// hyperparameter's summary gets its prior, the value and `fixed_at: map`, the
+    /// summary gets [`DiscrepancyMap`], and warnings when an sd's mode is about zero,
+    /// a start ended in a lower mode, or a start did not converge.
+    ///
+    /// Call after [`Self::with_discrepancy`] on the posterior that was sampled.
+    pub fn with_map(mut self, searched: &LogPosterior<'_>, est: &MapEstimate) -> Self {
+        let (theta, noise_var, disc) = searched.split_state(est.x.clone());
+        for ((e, q, kind, prior), v) in searched.discrepancy_labels().into_iter().zip(disc) {
+            let Some((_, _, d)) = self
+                .discrepancy
+                .iter_mut()
+                .find(|(de, dq, _)| *de == e && *dq == q)
+            else {
+                continue;
+            };
+            let h = match kind {
+                HyperKind::Sd => &mut d.sd,
+                HyperKind::LengthScale => match d.length_scale.as_mut() {
+                    Some(l) => l,
+                    None => continue,
+                },
+            };
+            *h = HyperSummary {
+                prior: prior.describe(),
+                value: Some(v),
+                posterior: None,
+                diagnostics: None,
+                mcse_mean: None,
+                fixed_at: Some(FixedAt::Map),
+            };
+            if kind == HyperKind::Sd && v < SD_NEGLIGIBLE * prior.reference() {
+                self.warnings.push(format!(
+                    "discrepancy sd of {e}.{q}: its posterior mode is about zero ({v:.3e}): at the mode the data show no discrepancy, so fixing it there calibrates as without one; consider `hyperparameters: sampled`"
+                ));
+            }
+        }
+        let best = est.ln_posterior;
+        let lower = est
+            .starts
+            .iter()
+            .filter(|s| s.termination != MapTermination::NoFiniteStart)
+            .filter(|s| best - s.ln_posterior > MAP_SPREAD_WARN)
+            .count();
+        if lower > 0 {
+            self.warnings.push(format!(
+                "posterior mode: {lower} of {} starts ended more than {MAP_SPREAD_WARN} below the best ({best:.6}): the joint posterior has other local modes; the best was used",
+                est.starts.len()
+            ));
+        }
+        let unconverged = est
+            .starts
+            .iter()
+            .filter(|s| s.termination != MapTermination::Converged)
+            .count();
+        if unconverged > 0 {
+            self.warnings.push(format!(
+                "posterior mode: {unconverged} of {} starts did not converge (iteration limit, or no finite starting point)",
+                est.starts.len()
+            ));
+        }
+        let noise_names = searched.noise_names();
+        self.discrepancy_map = Some(DiscrepancyMap {
+            method: "maximum of the joint posterior density of the parameters, estimated noise variances and discrepancy hyperparameters (constrained scale, no Jacobian); Nelder-Mead on (logit θ, ln σ², ln s, ln ℓ), restarted until no gain, from several starts".into(),
+            ln_posterior: est.ln_posterior,
+            parameters: self.names.iter().cloned().zip(theta).collect(),
+            noise_sd: noise_names
+                .into_iter()
+                .zip(noise_var.iter().map(|v| v.sqrt()))
+                .collect(),
+            starts: est.starts.clone(),
+            best_start: est.best_start,
+            n_evaluations: est.n_evaluations,
+        });
         self
     }
 }
@@ -442,6 +580,10 @@ pub struct PosteriorBody {
     /// `calibration.discrepancy`.
     #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
     pub discrepancy: BTreeMap<String, BTreeMap<String, DiscrepancySummary>>,
+    /// With `hyperparameters: map`: the joint posterior mode that fixed the discrepancy
+    /// hyperparameters; absent otherwise (and in records made before the key existed).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub discrepancy_map: Option<DiscrepancyMap>,
     pub settings: SettingsWire,
     pub chains: Vec<ChainWire>,
     pub n_draws: usize,
@@ -493,6 +635,7 @@ impl PosteriorBody {
                 }
                 m
             },
+            discrepancy_map: s.discrepancy_map.clone(),
             settings: SettingsWire {
                 sampler: match params.kind {
                     SamplerChoice::AdaptiveMetropolis => {
@@ -517,10 +660,10 @@ impl PosteriorBody {
                     } else {
                         "Gaussian: measurement noise (known, or unknown variance with an inverse-gamma prior, sampled) plus surrogate predictive variance"
                     },
-                    if s.discrepancy.is_empty() {
-                        ""
-                    } else {
-                        " plus a Gaussian-process model discrepancy over x"
+                    match (s.discrepancy.is_empty(), s.discrepancy_map.is_some()) {
+                        (true, _) => "",
+                        (false, false) => " plus a Gaussian-process model discrepancy over x",
+                        (false, true) => " plus a Gaussian-process model discrepancy over x, its hyperparameters fixed at the joint posterior mode",
                     }
                 ),
                 max_draws: params.until_converged,

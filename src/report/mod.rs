@@ -535,6 +535,71 @@ fn surrogate_section(h: &mut String, r: &ReportInput) {
 /// index in the samples, prior density curve (parameters only), central 95 % interval.
 type Sampled = (String, String, usize, Option<Vec<(f64, f64)>>, (f64, f64));
 
+/// The model discrepancy's hyperparameters: the posterior of sampled ones, the value of
+/// fixed ones and how they were fixed (given, or at the joint posterior mode).
+fn discrepancy_table(h: &mut String, b: &PosteriorBody) {
+    if b.discrepancy.is_empty() {
+        return;
+    }
+    h.push_str("<h3>Model discrepancy</h3>\n");
+    let mut rows = Vec::new();
+    for (e, per_quantity) in &b.discrepancy {
+        for (q, d) in per_quantity {
+            let hypers = std::iter::once(("sd", &d.sd))
+                .chain(d.length_scale.as_ref().map(|l| ("length-scale", l)));
+            for (what, hs) in hypers {
+                let (value, how) = match (&hs.posterior, hs.value) {
+                    (Some(m), _) => (
+                        format!(
+                            "{} (sd {}; 95 % {} – {})",
+                            sig(m.mean, 4),
+                            sig(m.sd, 2),
+                            sig(m.q025, 3),
+                            sig(m.q975, 3)
+                        ),
+                        "sampled".to_string(),
+                    ),
+                    (None, Some(v)) if hs.fixed_at.is_some() => {
+                        (sig(v, 5), "fixed at the joint posterior mode".into())
+                    }
+                    (None, Some(v)) => (sig(v, 5), "fixed in the study".into()),
+                    (None, None) => ("–".into(), "–".into()),
+                };
+                rows.push(vec![
+                    esc(e),
+                    esc(q),
+                    what.to_string(),
+                    esc(&d.kernel),
+                    esc(&hs.prior),
+                    value,
+                    how,
+                ]);
+            }
+        }
+    }
+    h.push_str(&table(
+        &[
+            "experiment",
+            "quantity",
+            "hyperparameter",
+            "kernel",
+            "prior",
+            "value",
+            "how",
+        ],
+        &rows,
+    ));
+    if let Some(m) = &b.discrepancy_map {
+        let _ = writeln!(
+            h,
+            "<p>The fixed hyperparameters are the joint posterior mode of the parameters, estimated noise variances and these hyperparameters (log posterior {} there; {} starts, {} evaluations). Their uncertainty is not carried into the posterior of the parameters.</p>",
+            sig(m.ln_posterior, 8),
+            m.starts.len(),
+            m.n_evaluations
+        );
+    }
+}
+
 fn posterior_section(h: &mut String, r: &ReportInput) {
     h.push_str("<section id=\"posterior\">\n<h2>Posterior</h2>\n");
     let Some(pv) = &r.posterior else {
@@ -631,6 +696,7 @@ fn posterior_section(h: &mut String, r: &ReportInput) {
             .collect();
         h.push_str(&table(&header, &rows));
     }
+    discrepancy_table(h, b);
     h.push_str("<h3>Chains</h3>\n");
     let rows: Vec<Vec<String>> = b
         .chains

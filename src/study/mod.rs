@@ -21,8 +21,9 @@ pub use locate::LineIndex;
 pub use spec::{schema_json, Backend, SlurmSpec};
 pub use validate::{
     is_folder_name, load, parse, CalibrationParams, DesignMethod, DesignParams, DesignSpace,
-    DiscrepancyParams, Experiment, FileTemplate, HyperpriorChoice, KernelChoice, MeanChoice, Noise,
-    OutputFormat, OutputSpec, Parameter, Prior, RefineParams, Simulator, Study, SurrogateParams,
+    DiscrepancyParams, Experiment, FileTemplate, HyperparameterMode, HyperpriorChoice,
+    KernelChoice, MeanChoice, Noise, OutputFormat, OutputSpec, Parameter, Prior, RefineParams,
+    Simulator, Study, SurrogateParams,
 };
 
 /// A study parsed from `text` whose every data file reads as `data` (unit tests of the

@@ -474,8 +474,8 @@ pub struct DiscrepancySpec {
     #[serde(default = "default_discrepancy_kernel")]
     pub kernel: KernelChoice,
     /// Standard deviation of δ, in the output's unit: `{fixed: v}` or
-    /// `{half_normal: {scale: s}}` (sampled). Default: half-normal with the scale the
-    /// sample sd of the quantity's field values.
+    /// `{half_normal: {scale: s}}` (sampled). Default: half-normal with scale 0.1 × the
+    /// largest mean measured value of the quantity.
     #[serde(default)]
     pub sd: Option<DiscrepancySdSpec>,
     /// Length-scale of δ along x, in x's unit (curves only): `{fixed: v}` or
@@ -486,6 +486,37 @@ pub struct DiscrepancySpec {
     /// Experiments that get a discrepancy. Default: every experiment.
     #[serde(default)]
     pub experiments: Option<Vec<String>>,
+    /// What happens to the hyperparameters that have a prior (`sd`, `length_scale`):
+    /// `sampled` with the parameters (default), or `map`: estimated first at the mode of
+    /// the joint posterior density, then held fixed while the parameters are sampled.
+    #[serde(default)]
+    pub hyperparameters: HyperparameterMode,
+}
+
+/// `calibration.discrepancy.hyperparameters`: how the discrepancy hyperparameters that
+/// have a prior enter the calibration.
+#[derive(Debug, Clone, Copy, Default, Deserialize, PartialEq, Eq, JsonSchema)]
+#[serde(rename_all = "snake_case")]
+pub enum HyperparameterMode {
+    /// Sampled with the parameters under their priors: their uncertainty is carried
+    /// into the posterior of the parameters.
+    #[default]
+    Sampled,
+    /// Estimated first at the maximum of the joint posterior density (MAP) of the
+    /// parameters, noise variances and hyperparameters, then fixed there while the
+    /// parameters are sampled (a modular, plug-in estimate: their uncertainty is not
+    /// carried into the posterior).
+    Map,
+}
+
+impl HyperparameterMode {
+    /// The study-file spelling.
+    pub fn name(self) -> &'static str {
+        match self {
+            HyperparameterMode::Sampled => "sampled",
+            HyperparameterMode::Map => "map",
+        }
+    }
 }
 
 fn default_discrepancy_kernel() -> KernelChoice {

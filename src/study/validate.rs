@@ -11,7 +11,8 @@ use std::collections::{BTreeMap, BTreeSet};
 use std::path::{Component, Path, PathBuf};
 
 pub use super::spec::{
-    ControlDesign, DesignMethod, DesignSpace, HyperpriorChoice, KernelChoice, MeanChoice,
+    ControlDesign, DesignMethod, DesignSpace, HyperparameterMode, HyperpriorChoice, KernelChoice,
+    MeanChoice,
 };
 
 /// Placeholders assay provides itself; parameters and settings may not take these names.
@@ -161,6 +162,8 @@ pub struct DiscrepancyParams {
     pub length_scale: Option<LengthScaleSpec>,
     /// The experiments with a discrepancy (every experiment unless named).
     pub experiments: Vec<String>,
+    /// Sampled with the parameters, or fixed at their joint posterior mode first.
+    pub hyperparameters: HyperparameterMode,
 }
 
 /// A checked study.
@@ -1046,10 +1049,13 @@ fn check_gradient_available(c: &mut Checker<'_>, spec: &StudySpec) {
     let curves = spec.simulator.output.x.is_some() || !spec.controls.is_empty();
     let sd_fixed = matches!(d.sd, Some(DiscrepancySdSpec::Fixed(_)));
     let ls_fixed = !curves || matches!(d.length_scale, Some(LengthScaleSpec::Fixed(_)));
-    if !(sd_fixed && ls_fixed) {
+    // With `hyperparameters: map` they are fixed (at the posterior mode) while θ is
+    // sampled.
+    let fixed = (sd_fixed && ls_fixed) || d.hyperparameters == HyperparameterMode::Map;
+    if !fixed {
         c.err(
             "calibration.sampler",
-            "`nuts` needs the discrepancy's hyperparameters fixed (`sd: {fixed: v}`, and `length_scale: {fixed: v}` for curves); sampled ones have no gradient yet: use `adaptive_metropolis`",
+            "`nuts` needs the discrepancy's hyperparameters fixed (`sd: {fixed: v}`, and `length_scale: {fixed: v}` for curves, or all of them at their posterior mode with `hyperparameters: map`); sampled ones have no gradient yet: use `adaptive_metropolis`",
         );
     }
     let with_discrepancy = |name: &str| {
@@ -1104,6 +1110,22 @@ fn check_discrepancy(
         }
         _ => {}
     }
+    // `map` estimates the hyperparameters that have a prior; with none there is nothing
+    // to estimate, and the key would silently mean `sampled`.
+    let sd_fixed = matches!(d.sd, Some(DiscrepancySdSpec::Fixed(_)));
+    let no_length_scale = spec.simulator.output.x.is_none() && spec.controls.is_empty();
+    let length_fixed = matches!(d.length_scale, Some(LengthScaleSpec::Fixed(_)));
+    if d.hyperparameters == HyperparameterMode::Map && sd_fixed && (length_fixed || no_length_scale)
+    {
+        c.err(
+            "calibration.discrepancy.hyperparameters",
+            if no_length_scale {
+                "`map` needs a hyperparameter to estimate, but `sd` is fixed and scalar outputs have no length-scale: give `sd` a prior (`{half_normal: {scale: s}}`) or leave `hyperparameters` out"
+            } else {
+                "`map` needs a hyperparameter to estimate, but `sd` and `length_scale` are both fixed: give one of them a prior or leave `hyperparameters` out"
+            },
+        );
+    }
     let all: Vec<String> = spec.experiments.iter().map(|e| e.name.clone()).collect();
     let experiments = match &d.experiments {
         None => all,
@@ -1130,6 +1152,7 @@ fn check_discrepancy(
         sd: d.sd,
         length_scale: d.length_scale,
         experiments,
+        hyperparameters: d.hyperparameters,
     }
 }
 
