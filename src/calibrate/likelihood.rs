@@ -704,7 +704,7 @@ impl ExperimentLikelihood {
     /// −∞ comes with zero derivatives.
     ///
     /// # Formula
-    /// See [`ln_normal_gradient`]; with an unknown variance σ²,
+    /// See `ln_normal_gradient` (private); with an unknown variance σ²,
     /// Λ_j = diag_j + σ²/n_j gives ∂/∂σ² = Σ_j (1/n_j) ∂/∂Λ_j − ν/(2σ²) + S/(2σ⁴)
     /// (module documentation).
     pub fn ln_likelihood_with_gradient(

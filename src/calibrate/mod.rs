@@ -30,7 +30,7 @@ pub use likelihood::{
 pub use map::{find_map, with_fixed_discrepancy, MapError, MapEstimate, MapParams};
 pub use posterior::LogPosterior;
 pub use prior::{ln_prior, InverseGamma, MvnPrior, Transform};
-pub use sampler::{converged, sample, Chain, Restart, SamplerParams, Termination};
+pub use sampler::{converged, sample, Chain, Restart, SamplerParams, Termination, STRANDED_GAP};
 pub use summary::{
     summarize, Correlation, DiscrepancyMap, DiscrepancySummary, FixedAt, HyperSummary, Marginal,
     Mcse, NoiseMcse, NoiseSummary, ParameterSummary, PosteriorBody, PosteriorSummary, CAUTION,

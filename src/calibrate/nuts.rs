@@ -17,7 +17,7 @@
 //! the step size alone. Each window's covariance is shrunk towards 10⁻³ I with weight
 //! 5/(n + 5). Halfway through warm-up, chains stranded far below the best one take
 //! over its state, as for the Metropolis chains
-//! ([`STRANDED_GAP`](super::sampler::STRANDED_GAP)).
+//! ([`STRANDED_GAP`](crate::calibrate::STRANDED_GAP)).
 //!
 //! The gradient comes from [`LogPosterior::ln_density_and_gradient`]: the Gaussian
 //! processes' mean and variance derivatives, the likelihood's through the Woodbury

@@ -92,7 +92,7 @@ pub struct Chain {
     pub step_scale: f64,
     pub termination: Termination,
     /// The chain whose warm-up state this one took over halfway through warm-up,
-    /// because it was stranded far below it ([`STRANDED_GAP`]).
+    /// because it was stranded far below it ([`STRANDED_GAP`](crate::calibrate::STRANDED_GAP)).
     pub restarted_from: Option<Restart>,
     /// Divergent trajectories after warm-up (the No-U-Turn sampler; 0 for the others).
     pub divergences: usize,
