@@ -389,30 +389,16 @@ impl Gp {
     /// # Panics
     /// If `x` has the wrong length.
     pub fn mean_gradient(&self, x: ArrayView1<f64>) -> Array1<f64> {
-        let d = self.x.ncols();
-        assert_eq!(x.len(), d, "input of the wrong dimension");
-        let s2 = self.hyper.ln_signal_var.exp();
-        let inv_l2: Vec<f64> = self
-            .hyper
-            .ln_length_scales
-            .iter()
-            .map(|l| (-2.0 * l).exp())
-            .collect();
-        let mut grad = Array1::zeros(d);
+        let (_, dk) = self.cross_cov(x, true);
+        self.mean_gradient_from(&dk)
+    }
+
+    /// ∂m/∂x from ∂k*/∂x (n × d): αᵀ ∂k*/∂x plus the linear trend's slopes.
+    fn mean_gradient_from(&self, dk: &Array2<f64>) -> Array1<f64> {
+        let mut grad = self.alpha.dot(dk);
         if self.trend == Trend::Linear {
-            for dd in 0..d {
-                grad[dd] = self.beta[dd + 1];
-            }
-        }
-        for (i, xi) in self.x.rows().into_iter().enumerate() {
-            let mut r2 = 0.0;
-            for dd in 0..d {
-                r2 += (x[dd] - xi[dd]).powi(2) * inv_l2[dd];
-            }
-            let g = self.kernel.neg_dcorr_over_r(r2.sqrt());
-            let c = -s2 * g * self.alpha[i];
-            for dd in 0..d {
-                grad[dd] += c * (x[dd] - xi[dd]) * inv_l2[dd];
+            for (dd, g) in grad.iter_mut().enumerate() {
+                *g += self.beta[dd + 1];
             }
         }
         grad
@@ -496,12 +482,7 @@ impl Gp {
             .solve_triangular(UPLO::Upper, Diag::NonUnit, &v)
             .expect("triangular solve with a Cholesky factor of positive diagonal");
         let mean = h.dot(&self.beta) + k.dot(&self.alpha);
-        let mut dmean = self.alpha.dot(&dk);
-        if self.trend == Trend::Linear {
-            for dd in 0..d {
-                dmean[dd] += self.beta[dd + 1];
-            }
-        }
+        let dmean = self.mean_gradient_from(&dk);
         let mut var = self.hyper.ln_signal_var.exp() - v.dot(&v);
         let mut dvar = q.dot(&dk) * -2.0;
         if !self.beta.is_empty() {

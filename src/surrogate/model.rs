@@ -265,20 +265,10 @@ impl ExperimentModel {
     ///
     /// # Formula
     /// ∂μ_j/∂θ_l = Σ_k B_jk ∂m_k/∂u_l / (hi_l − lo_l), with ∂m_k/∂u from
-    /// [`Gp::mean_gradient`] and u the unit-box input.
+    /// the component GPs and u the unit-box input: the mean part of
+    /// [`Self::predict_low_rank_with_gradient`].
     pub fn mean_gradient(&self, theta: &[f64]) -> Array2<f64> {
-        let u = self.unit(theta);
-        let d = theta.len();
-        let mut g = Array2::zeros((self.basis.n_values(), d));
-        for (c, comp) in self.components.iter().enumerate() {
-            let gu = comp.gp.mean_gradient(u.row(0));
-            for j in 0..self.basis.n_values() {
-                for l in 0..d {
-                    g[[j, l]] += self.basis_out[[j, c]] * gu[l] / (self.hi[l] - self.lo[l]);
-                }
-            }
-        }
-        g
+        self.predict_low_rank_with_gradient(theta).1.mean
     }
 
     /// Rebuild at known hyperparameters (ln scale, weight units) and a recorded basis:
