@@ -21,12 +21,55 @@ pub struct Diagnostics {
 impl Diagnostics {
     /// Compute all three for `chains` (one vector of draws per chain).
     pub fn of(chains: &[Vec<f64>]) -> Self {
+        Self::of_pooled(&Pooled::new(chains))
+    }
+
+    /// All three from draws already split and sorted (the rank normalisation is made
+    /// once, for both the bulk R̂ and the bulk ESS).
+    pub(crate) fn of_pooled(p: &Pooled) -> Self {
+        if p.split.is_empty() {
+            return Self {
+                rhat: f64::NAN,
+                ess_bulk: f64::NAN,
+                ess_tail: f64::NAN,
+            };
+        }
+        let z = rank_normalize(&p.split);
         Self {
-            rhat: rhat(chains),
-            ess_bulk: ess_bulk(chains),
-            ess_tail: ess_tail(chains),
+            rhat: rhat_from(&p.split, &z),
+            ess_bulk: ess_raw(&z),
+            ess_tail: ess_tail_from(&p.split, &p.sorted),
         }
     }
+}
+
+/// One quantity's draws prepared once for all its diagnostics: the split chains and all
+/// draws sorted (the sorts dominate the cost of the diagnostics on long chains).
+pub(crate) struct Pooled {
+    split: Vec<Vec<f64>>,
+    /// Every draw of every chain (before splitting), ascending.
+    pub sorted: Vec<f64>,
+}
+
+impl Pooled {
+    pub(crate) fn new(chains: &[Vec<f64>]) -> Self {
+        Self {
+            split: split(chains),
+            sorted: sorted_draws(chains),
+        }
+    }
+
+    /// [`mcse_quantile`] of these draws.
+    pub(crate) fn mcse_quantile(&self, p: f64) -> f64 {
+        mcse_quantile_from(&self.split, &self.sorted, p)
+    }
+}
+
+/// All draws of all chains, ascending.
+fn sorted_draws(chains: &[Vec<f64>]) -> Vec<f64> {
+    let mut all: Vec<f64> = chains.iter().flatten().copied().collect();
+    all.sort_unstable_by(f64::total_cmp);
+    all
 }
 
 /// Split every chain in two halves (the middle draw of an odd chain is dropped).
@@ -48,7 +91,8 @@ fn rank_normalize(chains: &[Vec<f64>]) -> Vec<Vec<f64>> {
             all.push((*v, c, i));
         }
     }
-    all.sort_by(|a, b| a.0.total_cmp(&b.0));
+    // Unstable: draws that tie share their average rank, so their order does not matter.
+    all.sort_unstable_by(|a, b| a.0.total_cmp(&b.0));
     let s = all.len() as f64;
     let normal = Normal::new(0.0, 1.0).expect("standard normal");
     let mut out: Vec<Vec<f64>> = chains.iter().map(|c| vec![0.0; c.len()]).collect();
@@ -89,8 +133,7 @@ fn rhat_basic(chains: &[Vec<f64>]) -> f64 {
 }
 
 fn median(chains: &[Vec<f64>]) -> f64 {
-    let mut all: Vec<f64> = chains.iter().flatten().copied().collect();
-    all.sort_by(f64::total_cmp);
+    let all = sorted_draws(chains);
     let n = all.len();
     if n % 2 == 1 {
         all[n / 2]
@@ -103,11 +146,19 @@ fn median(chains: &[Vec<f64>]) -> f64 {
 /// |θ − median|. Close to 1 at convergence; above 1.01 suggests running longer.
 pub fn rhat(chains: &[Vec<f64>]) -> f64 {
     let sp = split(chains);
+    if sp.is_empty() {
+        return f64::NAN;
+    }
+    rhat_from(&sp, &rank_normalize(&sp))
+}
+
+/// [`rhat`] of split chains `sp` whose rank-normalised values are `z`.
+fn rhat_from(sp: &[Vec<f64>], z: &[Vec<f64>]) -> f64 {
     if sp.is_empty() || sp[0].len() < 2 {
         return f64::NAN;
     }
-    let bulk = rhat_basic(&rank_normalize(&sp));
-    let med = median(&sp);
+    let bulk = rhat_basic(z);
+    let med = median(sp);
     let folded: Vec<Vec<f64>> = sp
         .iter()
         .map(|c| c.iter().map(|v| (v - med).abs()).collect())
@@ -237,10 +288,13 @@ pub fn ess_tail(chains: &[Vec<f64>]) -> f64 {
     if sp.is_empty() {
         return f64::NAN;
     }
+    ess_tail_from(&sp, &sorted_draws(chains))
+}
+
+/// [`ess_tail`] of split chains `sp`, given all draws `sorted` (before splitting).
+fn ess_tail_from(sp: &[Vec<f64>], sorted: &[f64]) -> f64 {
     // Quantiles of all draws (before splitting), as in Vehtari et al. (2021) §4.3.
-    let mut all: Vec<f64> = chains.iter().flatten().copied().collect();
-    all.sort_by(f64::total_cmp);
-    let q = |p: f64| quantile_sorted(&all, p);
+    let q = |p: f64| quantile_sorted(sorted, p);
     let (q05, q95) = (q(0.05), q(0.95));
     let ind = |thr: f64| -> Vec<Vec<f64>> {
         sp.iter()
@@ -261,16 +315,19 @@ pub fn ess_quantile(chains: &[Vec<f64>], p: f64) -> f64 {
     if sp.is_empty() {
         return f64::NAN;
     }
-    let mut all: Vec<f64> = chains.iter().flatten().copied().collect();
-    all.sort_by(f64::total_cmp);
-    let q = quantile_sorted(&all, p);
+    ess_quantile_from(&sp, &sorted_draws(chains), p)
+}
+
+/// [`ess_quantile`] of split chains `sp`, given all draws `sorted` (before splitting).
+fn ess_quantile_from(sp: &[Vec<f64>], sorted: &[f64], p: f64) -> f64 {
+    let q = quantile_sorted(sorted, p);
     let ind: Vec<Vec<f64>> = sp
         .iter()
         .map(|c| c.iter().map(|v| if *v <= q { 1.0 } else { 0.0 }).collect())
         .collect();
     // A constant indicator carries no autocorrelation: every draw counts (as arviz).
     if ind.iter().flatten().all(|v| *v == ind[0][0]) {
-        return all.len() as f64;
+        return sorted.len() as f64;
     }
     ess_raw(&ind)
 }
@@ -298,16 +355,24 @@ pub fn ess_quantile(chains: &[Vec<f64>], p: f64) -> f64 {
 /// assert_eq!(mcse_quantile(&[vec![2.0; 20], vec![2.0; 20]], 0.5), 0.0);
 /// ```
 pub fn mcse_quantile(chains: &[Vec<f64>], p: f64) -> f64 {
+    mcse_quantile_from(&split(chains), &sorted_draws(chains), p)
+}
+
+/// [`mcse_quantile`] of split chains `sp`, given all draws `all` sorted (before
+/// splitting).
+fn mcse_quantile_from(sp: &[Vec<f64>], all: &[f64], p: f64) -> f64 {
     use statrs::distribution::Beta;
-    let mut all: Vec<f64> = chains.iter().flatten().copied().collect();
-    all.sort_by(f64::total_cmp);
     let (Some(first), Some(last)) = (all.first(), all.last()) else {
         return f64::NAN;
     };
     if first == last {
         return 0.0;
     }
-    let n_eff = ess_quantile(chains, p);
+    let n_eff = if sp.is_empty() {
+        f64::NAN
+    } else {
+        ess_quantile_from(sp, all, p)
+    };
     let Ok(beta) = Beta::new(n_eff * p + 1.0, n_eff * (1.0 - p) + 1.0) else {
         return f64::NAN;
     };

@@ -1,6 +1,6 @@
 //! Posterior summaries and the `posterior.yaml` body.
 
-use super::diagnostics::{mcse_quantile, quantile_sorted, Diagnostics};
+use super::diagnostics::{quantile_sorted, Diagnostics, Pooled};
 use super::discrepancy::{Hyper, HyperKind};
 use super::map::{MapEstimate, MapStart, MapTermination};
 use super::posterior::LogPosterior;
@@ -190,19 +190,17 @@ pub const RHAT_WARN: f64 = 1.01;
 /// per chain with four chains).
 pub const ESS_WARN: f64 = 400.0;
 
-/// Moments and quantiles of pooled draws.
-fn marginal(all: &[f64]) -> Marginal {
-    let n = all.len() as f64;
-    let mean = all.iter().sum::<f64>() / n;
-    let sd = (all.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n - 1.0)).sqrt();
-    let mut sorted = all.to_vec();
-    sorted.sort_by(f64::total_cmp);
+/// Moments and quantiles of pooled draws, given in ascending order ([`Pooled::sorted`]).
+fn marginal(sorted: &[f64]) -> Marginal {
+    let n = sorted.len() as f64;
+    let mean = sorted.iter().sum::<f64>() / n;
+    let sd = (sorted.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n - 1.0)).sqrt();
     Marginal {
         mean,
         sd,
-        median: quantile_sorted(&sorted, 0.5),
-        q025: quantile_sorted(&sorted, 0.025),
-        q975: quantile_sorted(&sorted, 0.975),
+        median: quantile_sorted(sorted, 0.5),
+        q025: quantile_sorted(sorted, 0.025),
+        q975: quantile_sorted(sorted, 0.975),
     }
 }
 
@@ -284,8 +282,8 @@ pub fn summarize(names: &[String], noise_names: &[String], chains: &[Chain]) -> 
             .iter()
             .map(|c| c.theta.iter().map(|t| t[j]).collect())
             .collect();
-        let all: Vec<f64> = per_chain.iter().flatten().copied().collect();
-        let m = marginal(&all);
+        let pooled = Pooled::new(&per_chain);
+        let m = marginal(&pooled.sorted);
         parameters.push(ParameterSummary {
             mean: m.mean,
             sd: m.sd,
@@ -294,13 +292,13 @@ pub fn summarize(names: &[String], noise_names: &[String], chains: &[Chain]) -> 
             q975: m.q975,
             map: best.1.get(j).copied().unwrap_or(f64::NAN),
         });
-        let diag = Diagnostics::of(&per_chain);
+        let diag = Diagnostics::of_pooled(&pooled);
         diagnostic_warnings(&names[j], &diag, &mut warnings);
         mcse.push(Mcse {
             mean: m.sd / diag.ess_bulk.sqrt(),
-            median: mcse_quantile(&per_chain, 0.5),
-            q025: mcse_quantile(&per_chain, 0.025),
-            q975: mcse_quantile(&per_chain, 0.975),
+            median: pooled.mcse_quantile(0.5),
+            q025: pooled.mcse_quantile(0.025),
+            q975: pooled.mcse_quantile(0.975),
         });
         diagnostics.push(diag);
     }
@@ -319,10 +317,12 @@ pub fn summarize(names: &[String], noise_names: &[String], chains: &[Chain]) -> 
             .iter()
             .map(|c| c.iter().map(|v| v.sqrt()).collect())
             .collect();
-        let var_all: Vec<f64> = var_chains.iter().flatten().copied().collect();
-        let sd_all: Vec<f64> = sd_chains.iter().flatten().copied().collect();
-        let (sd, variance) = (marginal(&sd_all), marginal(&var_all));
-        let diag = Diagnostics::of(&sd_chains);
+        let sd_pooled = Pooled::new(&sd_chains);
+        let (sd, variance) = (
+            marginal(&sd_pooled.sorted),
+            marginal(&Pooled::new(&var_chains).sorted),
+        );
+        let diag = Diagnostics::of_pooled(&sd_pooled);
         diagnostic_warnings(&format!("noise sd of {name}"), &diag, &mut warnings);
         noise.push((
             name.clone(),
@@ -389,9 +389,9 @@ impl PosteriorSummary {
                         .map(|c| c.discrepancy.iter().map(|v| v[column]).collect())
                         .collect();
                     column += 1;
-                    let all: Vec<f64> = per_chain.iter().flatten().copied().collect();
-                    let m = marginal(&all);
-                    let diag = Diagnostics::of(&per_chain);
+                    let pooled = Pooled::new(&per_chain);
+                    let m = marginal(&pooled.sorted);
+                    let diag = Diagnostics::of_pooled(&pooled);
                     let what = match kind {
                         HyperKind::Sd => "discrepancy sd",
                         HyperKind::LengthScale => "discrepancy length-scale",

@@ -13,7 +13,7 @@
 
 use super::kernel::Kernel;
 use super::SurrogateError;
-use ndarray::{Array1, Array2, ArrayView1, ArrayView2, ShapeBuilder};
+use ndarray::{s, Array1, Array2, ArrayView1, ArrayView2, ShapeBuilder};
 use ndarray_linalg::{
     CholeskyFactorized, Diag, FactorizeC, InverseC, SolveC, SolveTriangular, UPLO,
 };
@@ -113,9 +113,14 @@ pub struct Gp {
     pub jitter: f64,
     /// 1/ℓ_d², kept for prediction.
     inv_l2: Vec<f64>,
-    /// Lᵀ column-major, made at the first prediction with a gradient (the second
-    /// triangular solve; LAPACK would copy a transposed view at every call).
-    l_t: std::sync::OnceLock<Array2<f64>>,
+    /// [`Gp::point_rows`], made at the first prediction that needs them.
+    point_rows: std::sync::OnceLock<Array2<f64>>,
+}
+
+thread_local! {
+    /// Scratch space of [`Gp::predict_point`] (x, k* and the product with its rows), so
+    /// the calibration's inner loop allocates nothing per prediction.
+    static POINT_SCRATCH: std::cell::RefCell<Vec<f64>> = const { std::cell::RefCell::new(Vec::new()) };
 }
 
 fn hyper_inv_l2(h: &Hyper) -> Vec<f64> {
@@ -244,7 +249,7 @@ impl Gp {
             kernel,
             trend,
             hyper,
-            x: x.to_owned(),
+            x: x.as_standard_layout().into_owned(),
             l,
             k_inv,
             k_inv_h,
@@ -255,7 +260,7 @@ impl Gp {
             ln_marginal_likelihood: lml,
             jitter,
             inv_l2: hyper_inv_l2(&hyper_copy),
-            l_t: std::sync::OnceLock::new(),
+            point_rows: std::sync::OnceLock::new(),
         })
     }
 
@@ -431,22 +436,87 @@ impl Gp {
         (k, dk)
     }
 
+    /// The rows P = [(K⁻¹H)ᵀ; αᵀ] ((q + 1) × n, column-major) that give HᵀK⁻¹k* and αᵀk*
+    /// in one matrix-vector product (BLAS `dgemv`).
+    fn point_rows(&self) -> &Array2<f64> {
+        self.point_rows.get_or_init(|| {
+            let n = self.x.nrows();
+            let q = self.beta.len();
+            let mut p = Array2::zeros((q + 1, n).f());
+            p.slice_mut(s![..q, ..]).assign(&self.k_inv_h.t());
+            p.row_mut(q).assign(&self.alpha);
+            p
+        })
+    }
+
+    /// Mean and variance (not clamped) at x from k* = k(x, X): `out` receives
+    /// v = L⁻¹k* (a BLAS triangular solve), then HᵀK⁻¹k* and αᵀk* ([`Self::point_rows`]),
+    /// n + q + 1 values. The one place both [`Self::predict_point`] and
+    /// [`Self::predict_with_gradient`] evaluate R&W eqs. 2.41–2.42, so they agree to the
+    /// last digit.
+    fn moments_from(&self, x: &[f64], k: &[f64], out: &mut [f64]) -> (f64, f64) {
+        let n = self.x.nrows();
+        let q = self.beta.len();
+        let (v, rest) = out.split_at_mut(n);
+        v.copy_from_slice(k);
+        crate::blas::trsv_lower_f(false, self.l.view(), v);
+        crate::blas::gemv_f(false, self.point_rows().view(), k, rest);
+        let mut var = self.hyper.ln_signal_var.exp() - v.iter().map(|t| t * t).sum::<f64>();
+        let mut mean = rest[q];
+        if q > 0 {
+            // h* = (1) or (1, x); R = h* − HᵀK⁻¹k*; var += Rᵀ A⁻¹ R.
+            let h = |j: usize| if j == 0 { 1.0 } else { x[j - 1] };
+            let r = |j: usize| h(j) - rest[j];
+            for a in 0..q {
+                mean += h(a) * self.beta[a];
+                let ra = r(a);
+                var += ra * ra * self.a_inv[[a, a]];
+                for b in 0..a {
+                    var += ra * r(b) * (self.a_inv[[a, b]] + self.a_inv[[b, a]]);
+                }
+            }
+        }
+        (mean, var)
+    }
+
     /// Predictive mean and variance at one input `x` (unit box): [`Self::predict`] for a
     /// single point, without the batch's temporaries (the calibration's inner loop).
+    ///
+    /// # Formula
+    /// R&W eqs. 2.41–2.42 as in [`Self::predict`], by [`Self::moments_from`].
+    ///
+    /// # Panics
+    /// If `x` has the wrong length.
     pub fn predict_point(&self, x: ArrayView1<f64>) -> (f64, f64) {
-        let (k, _) = self.cross_cov(x, false);
-        let h = self.trend.basis_row(x);
-        let v = self
-            .l
-            .solve_triangular(UPLO::Lower, Diag::NonUnit, &k)
-            .expect("triangular solve with a Cholesky factor of positive diagonal");
-        let mean = h.dot(&self.beta) + k.dot(&self.alpha);
-        let mut var = self.hyper.ln_signal_var.exp() - v.dot(&v);
-        if !self.beta.is_empty() {
-            let r = &h - &self.k_inv_h.t().dot(&k);
-            var += r.dot(&self.a_inv.dot(&r));
-        }
-        (mean, var.max(0.0))
+        let n = self.x.nrows();
+        let q = self.beta.len();
+        let d = self.x.ncols();
+        assert_eq!(x.len(), d, "input of the wrong dimension");
+        let s2 = self.hyper.ln_signal_var.exp();
+        let train = self
+            .x
+            .as_slice()
+            .expect("training inputs kept in standard layout");
+        POINT_SCRATCH.with_borrow_mut(|buf| {
+            buf.clear();
+            buf.resize(d + n + n + q + 1, 0.0);
+            let (xv, rest) = buf.split_at_mut(d);
+            let (k, out) = rest.split_at_mut(n);
+            for (a, b) in xv.iter_mut().zip(x.iter()) {
+                *a = *b;
+            }
+            for (ki, xi) in k.iter_mut().zip(train.chunks_exact(d)) {
+                let r2: f64 = xv
+                    .iter()
+                    .zip(xi)
+                    .zip(&self.inv_l2)
+                    .map(|((a, b), w)| (a - b).powi(2) * w)
+                    .sum();
+                *ki = s2 * self.kernel.corr(r2.sqrt());
+            }
+            let (mean, var) = self.moments_from(xv, k, out);
+            (mean, var.max(0.0))
+        })
     }
 
     /// Predictive mean and variance at one input `x` (unit box) with their gradients
@@ -467,28 +537,22 @@ impl Gp {
         x: ArrayView1<f64>,
     ) -> (f64, f64, Array1<f64>, Array1<f64>) {
         let d = self.x.ncols();
+        let n = self.x.nrows();
+        let nq = self.beta.len();
         let (k, dk) = self.cross_cov(x, true);
         let h = self.trend.basis_row(x);
-        let v = self
-            .l
-            .solve_triangular(UPLO::Lower, Diag::NonUnit, &k)
-            .expect("triangular solve with a Cholesky factor of positive diagonal");
-        let l_t = self.l_t.get_or_init(|| {
-            let mut u = Array2::zeros(self.l.raw_dim().f());
-            u.assign(&self.l.t());
-            u
-        });
-        let q = l_t
-            .solve_triangular(UPLO::Upper, Diag::NonUnit, &v)
-            .expect("triangular solve with a Cholesky factor of positive diagonal");
-        let mean = h.dot(&self.beta) + k.dot(&self.alpha);
+        // v = L⁻¹k*, HᵀK⁻¹k* and αᵀk* as [`Self::predict_point`] finds them
+        // ([`Self::moments_from`], so the two agree to the last digit), then q = L⁻ᵀv.
+        let mut out = vec![0.0; n + nq + 1];
+        let xs = x.to_vec();
+        let (mean, mut var) = self.moments_from(&xs, k.as_slice().expect("contiguous"), &mut out);
+        let mut q = Array1::from(out[..n].to_vec());
+        crate::blas::trsv_lower_f(true, self.l.view(), q.as_slice_mut().expect("contiguous"));
         let dmean = self.mean_gradient_from(&dk);
-        let mut var = self.hyper.ln_signal_var.exp() - v.dot(&v);
         let mut dvar = q.dot(&dk) * -2.0;
         if !self.beta.is_empty() {
-            let r = &h - &self.k_inv_h.t().dot(&k);
+            let r = &h - &ArrayView1::from(&out[n..n + nq]);
             let ar = self.a_inv.dot(&r);
-            var += r.dot(&ar);
             // ∂R/∂x_d = ∂h/∂x_d − (K⁻¹H)ᵀ ∂k/∂x_d; Rᵀ A⁻¹ (K⁻¹H)ᵀ ∂k = ((K⁻¹H) A⁻¹R)ᵀ ∂k.
             let w = self.k_inv_h.dot(&ar);
             dvar = dvar - w.dot(&dk) * 2.0;
