@@ -609,7 +609,9 @@ pub fn calibrate_stage(
     if params.kind == crate::study::spec::SamplerChoice::Nuts && !post.has_gradient() {
         bail!("`calibration.sampler: nuts` needs the gradient of every part of the log posterior, and this study has a part without one: use `adaptive_metropolis`");
     }
+    let sampling = std::time::Instant::now();
     let chains = sample(&post, &params, stop, observer);
+    let sampling_s = sampling.elapsed().as_secs_f64();
     let names = c.study.parameter_names();
     let noise_names = post.noise_names();
     let mut summary = summarize(&names, &noise_names, &chains).with_discrepancy(&post, &chains);
@@ -659,6 +661,7 @@ pub fn calibrate_stage(
     let body = PosteriorBody::new(&summary, &chains, &params, n_eval);
     let mut record = Record::new("posterior", clock.finish(), body);
     record.body.samples_sha256 = Some(sha256_file(&samples_path)?);
+    record.body.sampling_s = Some(sampling_s);
     record.body.settings.prior_from = cal.prior_from.as_ref().map(|p| p.display().to_string());
     write_record(&c.path(POSTERIOR_FILE), &record)?;
     Ok(summary)

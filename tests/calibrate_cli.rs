@@ -11,6 +11,7 @@ use std::collections::BTreeMap;
 #[derive(Debug, Deserialize)]
 struct Provenance {
     inputs: BTreeMap<String, String>,
+    elapsed_s: f64,
 }
 
 #[derive(Debug, Deserialize)]
@@ -23,6 +24,7 @@ struct PosteriorRecord {
     provenance: Provenance,
     n_draws: usize,
     chains: Vec<ChainRecord>,
+    sampling_s: Option<f64>,
 }
 
 fn posterior(env: &Env, name: &str) -> PosteriorRecord {
@@ -49,6 +51,13 @@ fn ensemble_until_converged_reports_every_walker_as_a_chain() {
         "{per} draws per walker"
     );
     assert_eq!(p.n_draws, 8 * per);
+    // The sampling's own time is recorded, a part of the whole stage's.
+    let sampling = p.sampling_s.expect("sampling_s recorded");
+    assert!(
+        sampling > 0.0 && sampling <= p.provenance.elapsed_s,
+        "sampling {sampling} s of {} s",
+        p.provenance.elapsed_s
+    );
 }
 
 #[test]

@@ -589,6 +589,11 @@ pub struct PosteriorBody {
     pub n_draws: usize,
     /// Evaluations of the log posterior, all chains, warm-up included.
     pub n_evaluations: u64,
+    /// Wall-clock seconds the sampling took (starting points, warm-up and kept draws of
+    /// every chain), a part of the provenance's `elapsed_s`; absent in records made
+    /// before the key existed.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub sampling_s: Option<f64>,
     pub warnings: Vec<String>,
     /// sha256 of `posterior-samples.csv` written with this record.
     pub samples_sha256: Option<String>,
@@ -683,6 +688,7 @@ impl PosteriorBody {
                 .collect(),
             n_draws: s.n_draws,
             n_evaluations,
+            sampling_s: None,
             warnings: s.warnings.clone(),
             samples_sha256: None,
             caution: CAUTION.into(),
