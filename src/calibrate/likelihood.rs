@@ -42,8 +42,8 @@ use super::discrepancy::Discrepancy;
 use super::prior::InverseGamma;
 use crate::study::{Experiment, Noise, Target};
 use crate::surrogate::{LowRankGradient, LowRankPrediction};
-use ndarray::{Array1, Array2, ArrayView2};
-use ndarray_linalg::{Cholesky, Diag, FactorizeC, SolveC, SolveTriangular, UPLO};
+use ndarray::{Array1, Array2, ArrayView2, ShapeBuilder};
+use ndarray_linalg::{Cholesky, CholeskyInplace, Diag, FactorizeC, SolveC, SolveTriangular, UPLO};
 use std::sync::OnceLock;
 
 /// Anything that predicts an experiment's output vector at parameter values θ.
@@ -154,16 +154,18 @@ pub fn ln_normal_low_rank(r: &[f64], lambda: &[f64], basis: ArrayView2<f64>, v: 
         quad += rj * rj / lj;
     }
     if k > 0 {
-        let g = scaled_basis(basis, v);
+        // G = B diag(√v) (negative variances, rounding noise, read as 0), element by
+        // element as [`scaled_basis`] makes it, without the temporary.
+        let sv: Vec<f64> = v.iter().map(|x| x.max(0.0).sqrt()).collect();
         let mut m = Array2::<f64>::eye(k);
-        let mut c = Array1::<f64>::zeros(k);
+        let mut c = vec![0.0; k];
         for j in 0..p {
             let il = 1.0 / lambda[j];
             for a in 0..k {
-                let ga = g[[j, a]] * il;
+                let ga = basis[[j, a]] * sv[a] * il;
                 c[a] += ga * r[j];
                 for b in 0..=a {
-                    m[[a, b]] += ga * g[[j, b]];
+                    m[[a, b]] += ga * (basis[[j, b]] * sv[b]);
                 }
             }
         }
@@ -172,7 +174,7 @@ pub fn ln_normal_low_rank(r: &[f64], lambda: &[f64], basis: ArrayView2<f64>, v: 
                 m[[b, a]] = m[[a, b]];
             }
         }
-        let Some((ln_det_m, correction)) = woodbury_terms(m, &c) else {
+        let Some((ln_det_m, correction)) = woodbury_terms(&m, &c) else {
             return f64::NEG_INFINITY;
         };
         quad -= correction;
@@ -187,16 +189,19 @@ fn scaled_basis(basis: ArrayView2<f64>, v: &[f64]) -> Array2<f64> {
     Array2::from_shape_fn(basis.dim(), |(j, c)| basis[[j, c]] * sv[c])
 }
 
-/// (ln |M|, cᵀ M⁻¹ c) by a Cholesky factorisation of the K × K matrix M (LAPACK);
-/// `None` when M is not positive definite.
-fn woodbury_terms(m: Array2<f64>, c: &Array1<f64>) -> Option<(f64, f64)> {
+/// (ln |M|, cᵀ M⁻¹ c) by a Cholesky factorisation M = L Lᵀ of the K × K matrix M
+/// (LAPACK, in place) and cᵀ M⁻¹ c = ‖L⁻¹c‖² (one BLAS triangular solve); `None` when
+/// M is not positive definite.
+fn woodbury_terms(m: &Array2<f64>, c: &[f64]) -> Option<(f64, f64)> {
     let k = c.len();
-    let f = m.factorizec(UPLO::Lower).ok()?;
-    let sol = f.solvec(c).ok()?;
-    let l = &f.factor;
+    let mut l = Array2::<f64>::zeros((k, k).f());
+    l.assign(m);
+    l.cholesky_inplace(UPLO::Lower).ok()?;
+    let mut y = c.to_vec();
+    crate::blas::trsv_lower_f(false, l.view(), &mut y);
     Some((
         2.0 * (0..k).map(|i| l[[i, i]].ln()).sum::<f64>(),
-        c.dot(&sol),
+        y.iter().map(|t| t * t).sum(),
     ))
 }
 
@@ -250,7 +255,8 @@ pub fn ln_normal_factored_low_rank(
         };
         let m = Array2::<f64>::eye(k) + a.t().dot(&a);
         let c = a.t().dot(&b);
-        let Some((ln_det_m, correction)) = woodbury_terms(m, &c) else {
+        let Some((ln_det_m, correction)) = woodbury_terms(&m, c.as_slice().expect("contiguous"))
+        else {
             return f64::NEG_INFINITY;
         };
         quad -= correction;
