@@ -191,9 +191,14 @@ fn scaled_basis(basis: ArrayView2<f64>, v: &[f64]) -> Array2<f64> {
 
 /// (ln |M|, cᵀ M⁻¹ c) by a Cholesky factorisation M = L Lᵀ of the K × K matrix M
 /// (LAPACK, in place) and cᵀ M⁻¹ c = ‖L⁻¹c‖² (one BLAS triangular solve); `None` when
-/// M is not positive definite.
+/// M is not positive definite. One component (K = 1) needs no factorisation: ln M and
+/// c²/M directly.
 fn woodbury_terms(m: &Array2<f64>, c: &[f64]) -> Option<(f64, f64)> {
     let k = c.len();
+    if k == 1 {
+        let m0 = m[[0, 0]];
+        return (m0 > 0.0 && m0.is_finite()).then(|| (m0.ln(), c[0] * c[0] / m0));
+    }
     let mut l = Array2::<f64>::zeros((k, k).f());
     l.assign(m);
     l.cholesky_inplace(UPLO::Lower).ok()?;
