@@ -394,7 +394,7 @@ impl Gp {
     /// # Panics
     /// If `x` has the wrong length.
     pub fn mean_gradient(&self, x: ArrayView1<f64>) -> Array1<f64> {
-        let (_, dk) = self.cross_cov(x, true);
+        let (_, dk) = self.cross_cov(x);
         self.mean_gradient_from(&dk)
     }
 
@@ -409,28 +409,25 @@ impl Gp {
         grad
     }
 
-    /// k(x, x_i) for every training point i and, when `with_grad`, ∂k(x, x_i)/∂x_d
-    /// (n × d): −σ² g(r_i) (x_d − x_id)/ℓ_d² ([`Kernel::neg_dcorr_over_r`]).
-    fn cross_cov(&self, x: ArrayView1<f64>, with_grad: bool) -> (Array1<f64>, Array2<f64>) {
+    /// k(x, x_i) for every training point i and ∂k(x, x_i)/∂x_d (n × d):
+    /// −σ² g(r_i) (x_d − x_id)/ℓ_d² ([`Kernel::neg_dcorr_over_r`]). (Without the
+    /// derivatives, [`Self::predict_point`] fills k in its scratch buffer.)
+    fn cross_cov(&self, x: ArrayView1<f64>) -> (Array1<f64>, Array2<f64>) {
         let d = self.x.ncols();
         let n = self.x.nrows();
         assert_eq!(x.len(), d, "input of the wrong dimension");
         let s2 = self.hyper.ln_signal_var.exp();
         let mut k = Array1::zeros(n);
-        let mut dk = Array2::zeros(if with_grad { (n, d) } else { (0, 0) });
+        let mut dk = Array2::zeros((n, d));
         for (i, xi) in self.x.rows().into_iter().enumerate() {
             let mut r2 = 0.0;
             for dd in 0..d {
                 r2 += (x[dd] - xi[dd]).powi(2) * self.inv_l2[dd];
             }
-            if with_grad {
-                let (rho, g) = self.kernel.corr_and_neg_d(r2.sqrt());
-                k[i] = s2 * rho;
-                for dd in 0..d {
-                    dk[[i, dd]] = -s2 * g * (x[dd] - xi[dd]) * self.inv_l2[dd];
-                }
-            } else {
-                k[i] = s2 * self.kernel.corr(r2.sqrt());
+            let (rho, g) = self.kernel.corr_and_neg_d(r2.sqrt());
+            k[i] = s2 * rho;
+            for dd in 0..d {
+                dk[[i, dd]] = -s2 * g * (x[dd] - xi[dd]) * self.inv_l2[dd];
             }
         }
         (k, dk)
@@ -464,7 +461,9 @@ impl Gp {
         let mut var = self.hyper.ln_signal_var.exp() - v.iter().map(|t| t * t).sum::<f64>();
         let mut mean = rest[q];
         if q > 0 {
-            // h* = (1) or (1, x); R = h* − HᵀK⁻¹k*; var += Rᵀ A⁻¹ R.
+            // h* = (1) or (1, x) ([`Trend::basis_row`]); R = h* − HᵀK⁻¹k*;
+            // var += Rᵀ A⁻¹ R.
+            assert_eq!(q, self.trend.width(x.len()), "a trend of another form");
             let h = |j: usize| if j == 0 { 1.0 } else { x[j - 1] };
             let r = |j: usize| h(j) - rest[j];
             for a in 0..q {
@@ -539,7 +538,7 @@ impl Gp {
         let d = self.x.ncols();
         let n = self.x.nrows();
         let nq = self.beta.len();
-        let (k, dk) = self.cross_cov(x, true);
+        let (k, dk) = self.cross_cov(x);
         let h = self.trend.basis_row(x);
         // v = L⁻¹k*, HᵀK⁻¹k* and αᵀk* as [`Self::predict_point`] finds them
         // ([`Self::moments_from`], so the two agree to the last digit), then q = L⁻ᵀv.
