@@ -10,6 +10,8 @@
 //! length-scale; once with a squared-exponential δ and known noise, once with a
 //! Matérn 5/2 δ and an unknown noise variance (inverse-gamma prior).
 
+mod common;
+
 use assay::calibrate::discrepancy::DiscrepancyBlock;
 use assay::calibrate::{
     find_map, sample, summarize, with_fixed_discrepancy, Discrepancy, Emulator,
@@ -18,6 +20,7 @@ use assay::calibrate::{
 use assay::progress::Silent;
 use assay::study::{Parameter, Prior};
 use assay::surrogate::Kernel;
+use common::exact::assert_matches_exact;
 use ndarray::{Array1, Array2};
 use ndarray_linalg::Inverse;
 use serde::Deserialize;
@@ -39,13 +42,6 @@ const LOCATION_N_SD: f64 = 2e-3;
 /// Same function, same point: the likelihoods differ only by round-off (dense Cholesky
 /// of 17 measurements in NumPy vs the grouped form with a 15 × 15 Cholesky in assay).
 const SAME_FUNCTION_ATOL: f64 = 1e-9;
-/// The posterior mean must be within this many Monte Carlo standard errors of the exact
-/// value: a 4-sigma band fails by chance about once in 16,000 per parameter.
-const MEAN_N_MCSE: f64 = 4.0;
-/// Relative error allowed on each posterior sd (issue 7 acceptance criterion: 5 %).
-const SD_RTOL: f64 = 0.05;
-/// Convergence threshold recommended by Vehtari et al. (2021).
-const RHAT_MAX: f64 = 1.01;
 
 #[derive(Deserialize)]
 struct Noise {
@@ -308,27 +304,7 @@ fn theta_sampled_at_the_mode_matches_the_closed_form() {
     let summary = summarize(&names, &[], &chains)
         .with_discrepancy(&post, &chains)
         .with_map(&full, &est);
-    for j in 0..2 {
-        let p = summary.parameters[j];
-        let exact_sd = cov_theta[[j, j]].sqrt();
-        let mcse = summary.mcse[j].mean;
-        assert!(
-            (p.mean - m[j]).abs() < MEAN_N_MCSE * mcse,
-            "{}: mean {} vs exact {} (MCSE {mcse})",
-            names[j],
-            p.mean,
-            m[j]
-        );
-        assert!(
-            (p.sd - exact_sd).abs() / exact_sd < SD_RTOL,
-            "{}: sd {} vs exact {exact_sd}",
-            names[j],
-            p.sd
-        );
-        assert!(summary.diagnostics[j].rhat < RHAT_MAX);
-        // Posterior variance ≤ prior variance in the conjugate case.
-        assert!(p.sd < f.priors.theta_sd[j]);
-    }
+    assert_matches_exact(&summary, &names, &m, &cov_theta, &f.priors.theta_sd);
     // The summary says the hyperparameters were fixed at the mode, with their priors.
     let (e, q, d) = &summary.discrepancy[0];
     assert_eq!((e.as_str(), q.as_str()), ("line", "y"));

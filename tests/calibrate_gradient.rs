@@ -15,8 +15,8 @@ use assay::calibrate::{
 mod common;
 
 use assay::study::{Parameter, Prior, SurrogateParams};
-use assay::surrogate::{fit_surrogate, ExperimentModel, Gp, Hyper, Kernel, Trend};
-use common::curve::{curve, curve_runs, inputs, STATIONS};
+use assay::surrogate::{fit_surrogate, ExperimentModel, Kernel};
+use common::curve::{curve, curve_runs, gradient_test_gps, STATIONS};
 use ndarray::Array1;
 
 /// Central differences of step 1e-5 on these O(1) functions: truncation O(h²f‴) ≈ 1e-10,
@@ -32,51 +32,33 @@ fn close(a: f64, b: f64, rtol: f64) -> bool {
 fn gp_mean_and_variance_gradients_match_finite_differences() {
     // R&W 2006 eqs. 2.41–2.42 differentiated, against central differences of
     // Gp::predict_point; and predict_point against the batch predict.
-    let x = inputs(14, 3, 5);
-    let y = Array1::from_iter(
-        x.rows()
-            .into_iter()
-            .map(|r| (3.0 * r[0]).sin() + r[1] * r[2] + 0.5 * r[2]),
-    );
-    let hyper = Hyper {
-        ln_signal_var: 0.3,
-        ln_length_scales: vec![0.4f64.ln(), 0.7f64.ln(), 0.9f64.ln()],
-        ln_nugget: 1e-6f64.ln(),
-    };
-    for kernel in [
-        Kernel::Matern52,
-        Kernel::Matern32,
-        Kernel::SquaredExponential,
-    ] {
-        for trend in [Trend::Zero, Trend::Constant, Trend::Linear] {
-            let gp = Gp::fit(x.view(), y.view(), kernel, trend, hyper.clone()).unwrap();
-            for at in [[0.31, 0.52, 0.17], [0.9, 0.05, 0.66], [1.2, -0.1, 0.5]] {
-                let a = Array1::from(at.to_vec());
-                let (m, v, gm, gv) = gp.predict_with_gradient(a.view());
-                let (m1, v1) = gp.predict_point(a.view());
-                let (mb, vb) = gp.predict(a.view().insert_axis(ndarray::Axis(0)));
-                assert!(close(m, mb[0], 1e-12) && close(m1, mb[0], 1e-12));
-                assert!(close(v, vb[0], 1e-10) && close(v1, vb[0], 1e-12));
-                for d in 0..3 {
-                    let f = |h: f64| {
-                        let mut b = at;
-                        b[d] += h;
-                        gp.predict_point(Array1::from(b.to_vec()).view())
-                    };
-                    let (p, q) = (f(FD_STEP), f(-FD_STEP));
-                    let fd_m = (p.0 - q.0) / (2.0 * FD_STEP);
-                    let fd_v = (p.1 - q.1) / (2.0 * FD_STEP);
-                    assert!(
-                        close(gm[d], fd_m, FD_RTOL),
-                        "{kernel:?} {trend:?} ∂m/∂x{d}: {} vs {fd_m}",
-                        gm[d]
-                    );
-                    assert!(
-                        close(gv[d], fd_v, FD_RTOL),
-                        "{kernel:?} {trend:?} ∂v/∂x{d}: {} vs {fd_v}",
-                        gv[d]
-                    );
-                }
+    for (kernel, trend, gp) in gradient_test_gps() {
+        for at in [[0.31, 0.52, 0.17], [0.9, 0.05, 0.66], [1.2, -0.1, 0.5]] {
+            let a = Array1::from(at.to_vec());
+            let (m, v, gm, gv) = gp.predict_with_gradient(a.view());
+            let (m1, v1) = gp.predict_point(a.view());
+            let (mb, vb) = gp.predict(a.view().insert_axis(ndarray::Axis(0)));
+            assert!(close(m, mb[0], 1e-12) && close(m1, mb[0], 1e-12));
+            assert!(close(v, vb[0], 1e-10) && close(v1, vb[0], 1e-12));
+            for d in 0..3 {
+                let f = |h: f64| {
+                    let mut b = at;
+                    b[d] += h;
+                    gp.predict_point(Array1::from(b.to_vec()).view())
+                };
+                let (p, q) = (f(FD_STEP), f(-FD_STEP));
+                let fd_m = (p.0 - q.0) / (2.0 * FD_STEP);
+                let fd_v = (p.1 - q.1) / (2.0 * FD_STEP);
+                assert!(
+                    close(gm[d], fd_m, FD_RTOL),
+                    "{kernel:?} {trend:?} ∂m/∂x{d}: {} vs {fd_m}",
+                    gm[d]
+                );
+                assert!(
+                    close(gv[d], fd_v, FD_RTOL),
+                    "{kernel:?} {trend:?} ∂v/∂x{d}: {} vs {fd_v}",
+                    gv[d]
+                );
             }
         }
     }

@@ -16,6 +16,8 @@
 //! closed form uses every measurement as its own row of A: the test checks that the two
 //! agree.
 
+mod common;
+
 use assay::calibrate::discrepancy::DiscrepancyBlock;
 use assay::calibrate::{
     sample, summarize, Discrepancy, Emulator, ExperimentLikelihood, Hyper, LogPosterior,
@@ -25,20 +27,14 @@ use assay::progress::Silent;
 use assay::study::spec::SamplerChoice;
 use assay::study::{Parameter, Prior};
 use assay::surrogate::{Kernel, LowRankGradient, LowRankPrediction};
+use common::exact::assert_matches_exact;
 use ndarray::{Array1, Array2};
 use ndarray_linalg::Inverse;
 use std::sync::atomic::AtomicBool;
 
-/// The posterior mean must be within this many Monte Carlo standard errors of the exact
-/// value: a 4-sigma band fails by chance about once in 16,000 per parameter.
-const MEAN_N_MCSE: f64 = 4.0;
-/// Relative error allowed on each posterior sd (issue 7 acceptance criterion: 5 %).
-const SD_RTOL: f64 = 0.05;
 /// Absolute error allowed on the posterior correlation of θ₁ and θ₂ (the brief's 0.05).
 /// The Monte Carlo sd of a sample correlation ρ̂ is about (1 − ρ²)/√ESS, under 0.01 here.
 const CORR_ATOL: f64 = 0.05;
-/// Convergence threshold recommended by Vehtari et al. (2021).
-const RHAT_MAX: f64 = 1.01;
 
 /// The field x values.
 const XS: [f64; 10] = [0.0, 0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, 0.9];
@@ -146,27 +142,7 @@ fn assert_matches(
     assert_eq!(post.dim(), 3, "only θ is sampled");
     let chains = sample(&post, &params, &AtomicBool::new(false), &Silent);
     let s = summarize(names, &[], &chains).with_discrepancy(&post, &chains);
-    for j in 0..3 {
-        let p = s.parameters[j];
-        let exact_sd = cov[[j, j]].sqrt();
-        let mcse = s.mcse[j].mean;
-        assert!(
-            (p.mean - m[j]).abs() < MEAN_N_MCSE * mcse,
-            "{}: mean {} vs exact {} (MCSE {mcse})",
-            names[j],
-            p.mean,
-            m[j]
-        );
-        assert!(
-            (p.sd - exact_sd).abs() / exact_sd < SD_RTOL,
-            "{}: sd {} vs exact {exact_sd}",
-            names[j],
-            p.sd
-        );
-        assert!(s.diagnostics[j].rhat < RHAT_MAX, "{:?}", s.diagnostics[j]);
-        // Posterior variance ≤ prior variance in the conjugate case.
-        assert!(p.sd < PRIOR_SD[j]);
-    }
+    assert_matches_exact(&s, names, m, cov, &PRIOR_SD);
     s
 }
 

@@ -8,10 +8,10 @@ mod common;
 use assay::runs::RunSet;
 use assay::study::{HyperpriorChoice, Parameter, Prior, SurrogateParams};
 use assay::surrogate::{
-    fit_surrogate, objective, pick_holdout, FitParams, Gp, Hyper, HyperBounds, Kernel,
-    LengthScalePrior, SurrogateBody, Trend,
+    fit_surrogate, objective, pick_holdout, FitParams, HyperBounds, Kernel, LengthScalePrior,
+    SurrogateBody, Trend,
 };
-use common::curve::{curve_runs, inputs, STATIONS};
+use common::curve::{curve_runs, gradient_test_gps, inputs, STATIONS};
 use ndarray::{Array1, Array2};
 
 /// Central differences with step h have truncation error O(h²·f‴) ≈ 1e-10 and
@@ -33,44 +33,26 @@ fn close(a: f64, b: f64) -> bool {
 fn mean_gradient_matches_finite_differences_for_every_kernel_and_trend() {
     // Structural check: the analytic ∂m/∂x (R&W 2006 eq. 2.41 differentiated) against
     // central differences of Gp::predict.
-    let x = inputs(14, 3, 5);
-    let y = Array1::from_iter(
-        x.rows()
-            .into_iter()
-            .map(|r| (3.0 * r[0]).sin() + r[1] * r[2] + 0.5 * r[2]),
-    );
-    let hyper = Hyper {
-        ln_signal_var: 0.3,
-        ln_length_scales: vec![0.4f64.ln(), 0.7f64.ln(), 0.9f64.ln()],
-        ln_nugget: 1e-6f64.ln(),
-    };
-    for kernel in [
-        Kernel::Matern52,
-        Kernel::Matern32,
-        Kernel::SquaredExponential,
-    ] {
-        for trend in [Trend::Zero, Trend::Constant, Trend::Linear] {
-            let gp = Gp::fit(x.view(), y.view(), kernel, trend, hyper.clone()).unwrap();
-            for at in [[0.31, 0.52, 0.17], [0.9, 0.05, 0.66]] {
-                let g = gp.mean_gradient(Array1::from(at.to_vec()).view());
-                for d in 0..3 {
-                    let mut a = at;
-                    let mut b = at;
-                    a[d] += FD_STEP;
-                    b[d] -= FD_STEP;
-                    let fa = gp
-                        .predict(Array2::from_shape_vec((1, 3), a.to_vec()).unwrap().view())
-                        .0[0];
-                    let fb = gp
-                        .predict(Array2::from_shape_vec((1, 3), b.to_vec()).unwrap().view())
-                        .0[0];
-                    let fd = (fa - fb) / (2.0 * FD_STEP);
-                    assert!(
-                        close(g[d], fd),
-                        "{kernel:?} {trend:?} d={d}: {} vs {fd}",
-                        g[d]
-                    );
-                }
+    for (kernel, trend, gp) in gradient_test_gps() {
+        for at in [[0.31, 0.52, 0.17], [0.9, 0.05, 0.66]] {
+            let g = gp.mean_gradient(Array1::from(at.to_vec()).view());
+            for d in 0..3 {
+                let mut a = at;
+                let mut b = at;
+                a[d] += FD_STEP;
+                b[d] -= FD_STEP;
+                let fa = gp
+                    .predict(Array2::from_shape_vec((1, 3), a.to_vec()).unwrap().view())
+                    .0[0];
+                let fb = gp
+                    .predict(Array2::from_shape_vec((1, 3), b.to_vec()).unwrap().view())
+                    .0[0];
+                let fd = (fa - fb) / (2.0 * FD_STEP);
+                assert!(
+                    close(g[d], fd),
+                    "{kernel:?} {trend:?} d={d}: {} vs {fd}",
+                    g[d]
+                );
             }
         }
     }

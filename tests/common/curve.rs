@@ -47,3 +47,36 @@ pub fn curve_runs(n: usize, seed: u64, params: &[Parameter], name: &str) -> RunS
         }],
     }
 }
+
+/// GPs at fixed hyperparameters fitted to a smooth function of 14 points in the 3-D unit
+/// box, one per kernel and trend: the cases of the prediction-gradient tests.
+pub fn gradient_test_gps() -> Vec<(
+    assay::surrogate::Kernel,
+    assay::surrogate::Trend,
+    assay::surrogate::Gp,
+)> {
+    use assay::surrogate::{Gp, Hyper, Kernel, Trend};
+    let x = inputs(14, 3, 5);
+    let y = ndarray::Array1::from_iter(
+        x.rows()
+            .into_iter()
+            .map(|r| (3.0 * r[0]).sin() + r[1] * r[2] + 0.5 * r[2]),
+    );
+    let hyper = Hyper {
+        ln_signal_var: 0.3,
+        ln_length_scales: vec![0.4f64.ln(), 0.7f64.ln(), 0.9f64.ln()],
+        ln_nugget: 1e-6f64.ln(),
+    };
+    let mut out = Vec::new();
+    for kernel in [
+        Kernel::Matern52,
+        Kernel::Matern32,
+        Kernel::SquaredExponential,
+    ] {
+        for trend in [Trend::Zero, Trend::Constant, Trend::Linear] {
+            let gp = Gp::fit(x.view(), y.view(), kernel, trend, hyper.clone()).unwrap();
+            out.push((kernel, trend, gp));
+        }
+    }
+    out
+}

@@ -6,6 +6,7 @@
 #![allow(dead_code)]
 
 pub mod curve;
+pub mod exact;
 
 use std::path::{Path, PathBuf};
 use std::time::Duration;
