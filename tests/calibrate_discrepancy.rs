@@ -73,7 +73,7 @@ fn calibrate_biased(discrepancy: bool) -> assay::calibrate::PosteriorSummary {
         xs: targets.iter().map(|t| t.x.unwrap()).collect(),
     };
     let mut lik = ExperimentLikelihood::new(e, &targets);
-    if let Some(d) = assay::campaign::discrepancy_of(&study, e) {
+    if let Some(d) = assay::calibrate::discrepancy_of(&study, e) {
         lik = lik.with_discrepancy(d);
     }
     let post = LogPosterior::new(study.parameters.clone(), vec![(&em as &dyn Emulator, lik)]);

@@ -19,11 +19,10 @@ mod parts;
 pub use parts::{changed_parts, design_parts, posterior_parts, surrogate_parts};
 
 use crate::calibrate::PosteriorBody;
-use crate::campaign::{
-    design_mismatch, Campaign, CHECKS_FILE, DESIGN_FILE, POSTERIOR_FILE, SAMPLES_FILE,
-    SURROGATE_FILE,
-};
 use crate::design::{Design, DesignBody};
+use crate::layout::{
+    Campaign, CHECKS_FILE, DESIGN_FILE, POSTERIOR_FILE, SAMPLES_FILE, SURROGATE_FILE,
+};
 use crate::record::{read_record, sha256_file, Provenance, Record};
 use crate::runs::{self, same_point, RunBody, RunState};
 use serde::Deserialize;
@@ -217,7 +216,7 @@ pub fn check_design(c: &Campaign) -> anyhow::Result<(StageCheck, Option<Design>)
     let recorded = &rec.provenance.study_parts;
     // The settings check explains a mismatch best; records of earlier versions have
     // no study parts and only it.
-    if let Some(why) = design_mismatch(&c.study, &design) {
+    if let Some(why) = crate::design::mismatch(&c.study, &design) {
         s.stale(why);
     } else if !recorded.is_empty() {
         for part in changed_parts(recorded, &design_parts(&c.study)) {

@@ -25,7 +25,7 @@
 //! Rasmussen & Williams (2006), §4.2 (the correlation functions).
 
 use crate::study::spec::{DiscrepancySdSpec, LengthScaleSpec};
-use crate::study::{DiscrepancyParams, Target};
+use crate::study::{DiscrepancyParams, Experiment, Study, Target};
 use crate::surrogate::Kernel;
 use ndarray::Array2;
 use rand::Rng;
@@ -405,6 +405,22 @@ impl Discrepancy {
             }
         }
     }
+}
+
+/// The model discrepancy of experiment `e` when the study gives it one.
+pub fn discrepancy_of(study: &Study, e: &Experiment) -> Option<Discrepancy> {
+    let d = study.calibration.discrepancy.as_ref()?;
+    if !d.experiments.contains(&e.name) {
+        return None;
+    }
+    let y = &study.simulator.output.y;
+    let targets = e.data.targets(y.len());
+    let disc = Discrepancy::new(d, y, &targets);
+    Some(if study.controls.is_empty() {
+        disc
+    } else {
+        disc.over_controls(d, &targets, &e.data.conditions(), &study.controls)
+    })
 }
 
 #[cfg(test)]

@@ -22,6 +22,7 @@ mod sobol;
 #[rustfmt::skip]
 mod sobol_table;
 mod space;
+mod staleness;
 mod wire;
 
 pub use augment::{fill_gaps, pick_spread};
@@ -36,6 +37,7 @@ pub use quality::{
 pub use sobol::{SobolGenerator, SOBOL_BITS, SOBOL_MAX_POINTS};
 pub use sobol_table::SOBOL_MAX_DIM;
 pub use space::{from_unit, to_unit};
+pub use staleness::mismatch;
 pub use wire::{DesignBody, RoundWire};
 
 use crate::study::{DesignMethod, DesignParams, DesignSpace, Parameter};

@@ -1,95 +1,9 @@
 //! The numbers behind the report's plots, from typed records: pure functions.
 
-use crate::calibrate::Emulator;
+use crate::calibrate::{discrepancy_sd_draws, field_emulator, Emulator, PosteriorBody, Samples};
+use crate::check::DrawnVariances;
 use crate::study::{Experiment, Noise, Study};
-use crate::surrogate::ExperimentModel;
-
-/// Kept MCMC draws as read from `posterior-samples.csv`.
-#[derive(Debug, Clone, PartialEq)]
-pub struct Samples {
-    /// The columns after `chain` and `draw`: parameters, noise sds, `log_posterior`.
-    pub columns: Vec<String>,
-    /// Per chain (in chain-number order), per draw, one value per column.
-    pub chains: Vec<Vec<Vec<f64>>>,
-}
-
-impl Samples {
-    /// Parse the text of `posterior-samples.csv` (`chain,draw,<columns…>`).
-    ///
-    /// # Errors
-    /// A missing `chain`/`draw` header, a malformed row or a non-number, with its line.
-    pub fn parse_csv(text: &str) -> Result<Self, String> {
-        let mut r = csv::ReaderBuilder::new().from_reader(text.as_bytes());
-        let header = r.headers().map_err(|e| format!("line 1: {e}"))?.clone();
-        if header.len() < 3 || &header[0] != "chain" || &header[1] != "draw" {
-            return Err("line 1: expected a header `chain,draw,…`".into());
-        }
-        let columns: Vec<String> = header.iter().skip(2).map(str::to_string).collect();
-        let mut chains: Vec<(usize, Vec<Vec<f64>>)> = Vec::new();
-        for (i, rec) in r.records().enumerate() {
-            let line = i + 2;
-            let rec = rec.map_err(|e| format!("line {line}: {e}"))?;
-            let chain: usize = rec[0]
-                .parse()
-                .map_err(|_| format!("line {line}: chain `{}` is not a number", &rec[0]))?;
-            let row: Result<Vec<f64>, String> = rec
-                .iter()
-                .skip(2)
-                .map(|v| {
-                    v.parse::<f64>()
-                        .map_err(|_| format!("line {line}: `{v}` is not a number"))
-                })
-                .collect();
-            let row = row?;
-            match chains.iter_mut().find(|(c, _)| *c == chain) {
-                Some((_, rows)) => rows.push(row),
-                None => chains.push((chain, vec![row])),
-            }
-        }
-        chains.sort_by_key(|(c, _)| *c);
-        Ok(Self {
-            columns,
-            chains: chains.into_iter().map(|(_, rows)| rows).collect(),
-        })
-    }
-
-    pub fn column(&self, name: &str) -> Option<usize> {
-        self.columns.iter().position(|c| c == name)
-    }
-
-    /// Column `j` of every chain, chains one after the other.
-    pub fn pooled(&self, j: usize) -> Vec<f64> {
-        self.chains
-            .iter()
-            .flat_map(|c| c.iter().map(move |r| r[j]))
-            .collect()
-    }
-
-    /// Column `j` of each chain.
-    pub fn per_chain(&self, j: usize) -> Vec<Vec<f64>> {
-        self.chains
-            .iter()
-            .map(|c| c.iter().map(|r| r[j]).collect())
-            .collect()
-    }
-
-    pub fn n_draws(&self) -> usize {
-        self.chains.iter().map(Vec::len).sum()
-    }
-
-    /// At most `max` draws spread evenly over all chains (every k-th pooled draw), each
-    /// as its full row.
-    pub fn thinned(&self, max: usize) -> Vec<&[f64]> {
-        let n = self.n_draws();
-        let step = n.div_ceil(max.max(1)).max(1);
-        self.chains
-            .iter()
-            .flat_map(|c| c.iter())
-            .step_by(step)
-            .map(Vec::as_slice)
-            .collect()
-    }
-}
+use crate::surrogate::{ExperimentModel, FittedSurrogate};
 
 /// Leave-one-out predictions of one output value at the training runs.
 #[derive(Debug, Clone, PartialEq)]
@@ -262,6 +176,100 @@ pub fn predictive(
     }
 }
 
+/// The posterior predictive bands of every experiment, from at most `max_draws`
+/// thinned posterior draws, with a note for each experiment whose bands cannot be made.
+#[derive(Debug, Clone, Default)]
+pub struct Bands {
+    pub quantities: Vec<PredictiveQuantity>,
+    pub notes: Vec<String>,
+    /// Posterior draws the bands were computed from.
+    pub n_draws: usize,
+}
+
+/// [`Bands`] of every experiment of `study`: the surrogate `fitted` (when there is one)
+/// at thinned draws of `samples` (unless `samples_ok` is false: none then), with the
+/// noise and discrepancy sds as calibrated (`posterior`).
+pub fn predictive_bands(
+    study: &Study,
+    fitted: Option<&FittedSurrogate>,
+    posterior: &PosteriorBody,
+    samples: &Samples,
+    samples_ok: bool,
+    max_draws: usize,
+) -> Bands {
+    let mut quantities = Vec::new();
+    let mut notes = Vec::new();
+    let rows = samples.thinned(max_draws);
+    let cols: Vec<Option<usize>> = study
+        .parameters
+        .iter()
+        .map(|p| samples.column(&p.name))
+        .collect();
+    let draws: Vec<Vec<f64>> = if !samples_ok {
+        Vec::new()
+    } else if cols.iter().all(Option::is_some) {
+        rows.iter()
+            .map(|r| cols.iter().map(|j| r[j.expect("checked")]).collect())
+            .collect()
+    } else {
+        notes.push("the samples do not have a column for every parameter of the study: run `assay calibrate` again".into());
+        Vec::new()
+    };
+    for e in &study.experiments {
+        let Some(fitted) = fitted else {
+            notes.push("no surrogate.yaml: predictive bands need the surrogate".into());
+            break;
+        };
+        let Some(model) = fitted.experiments.iter().find(|m| m.experiment == e.name) else {
+            notes.push(format!("the surrogate has no experiment `{}`", e.name));
+            continue;
+        };
+        let noise: Option<Vec<f64>> = samples
+            .column(&format!("noise_sd.{}", e.name))
+            .map(|j| rows.iter().map(|r| r[j]).collect());
+        let disc = match discrepancy_sd_draws(study, e, posterior, samples, &rows) {
+            Ok(d) => d,
+            Err(err) => {
+                notes.push(format!("{}: {err}", e.name));
+                continue;
+            }
+        };
+        let drawn = DrawnVariances {
+            noise_sd: noise.as_deref(),
+            discrepancy_sd: disc.as_deref(),
+        };
+        // With controls the emulator gives the field vector (one entry per target)
+        // when the surrogate's outputs are the runs' values.
+        let n_outputs = if study.controls.is_empty() {
+            model.outputs.len()
+        } else if model.outputs.len() == crate::runs::value_names(study, e).len() {
+            e.data.targets(study.simulator.output.y.len()).len()
+        } else {
+            0
+        };
+        match predictive(
+            study,
+            e,
+            &field_emulator(study, e, model),
+            n_outputs,
+            &draws,
+            drawn,
+        ) {
+            Some(q) => quantities.extend(q),
+            None if !draws.is_empty() => notes.push(format!(
+                "{}: the surrogate's outputs do not match the field data (run `assay all` to bring the records up to date)",
+                e.name
+            )),
+            None => {}
+        }
+    }
+    Bands {
+        quantities,
+        notes,
+        n_draws: draws.len(),
+    }
+}
+
 /// Share of field measurements inside mean ± 2·sd_total, over every point of `qs`.
 pub fn band_coverage(qs: &[PredictiveQuantity]) -> Option<f64> {
     let (mut inside, mut n) = (0usize, 0usize);
@@ -298,20 +306,6 @@ pub fn prior_curve(p: &crate::study::Parameter, n: usize) -> Vec<(f64, f64)> {
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    #[test]
-    fn samples_parse_by_chain_and_thin_evenly() {
-        let text = "chain,draw,E,log_posterior\n0,0,1,-1\n0,1,2,-2\n1,0,3,-3\n1,1,4,-4\n";
-        let s = Samples::parse_csv(text).unwrap();
-        assert_eq!(s.columns, ["E", "log_posterior"]);
-        assert_eq!(s.per_chain(0), vec![vec![1.0, 2.0], vec![3.0, 4.0]]);
-        assert_eq!(s.pooled(1), vec![-1.0, -2.0, -3.0, -4.0]);
-        let t: Vec<f64> = s.thinned(2).iter().map(|r| r[0]).collect();
-        assert_eq!(t, vec![1.0, 3.0]);
-        assert!(Samples::parse_csv("a,b\n1,2\n").is_err());
-        let e = Samples::parse_csv("chain,draw,E\n0,0,x\n").unwrap_err();
-        assert!(e.contains("line 2"), "{e}");
-    }
 
     /// μ(θ) = (θ, 2θ), s²(θ) = (0.01, 0.04): a surrogate whose moments are known.
     struct Linear;

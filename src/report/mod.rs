@@ -7,20 +7,21 @@
 //! Output: the HTML text ([`render`]); plots are inline SVG drawn with plotters
 //! ([`plot`]), styled by inline CSS. No scripts, no fonts, images or styles fetched.
 //! Must not: read files, the clock or the environment (the caller passes the time).
-//! Main types: [`ReportInput`], [`compute::Samples`], [`compute::PredictiveQuantity`].
+//! Main types: [`ReportInput`], [`Samples`], [`compute::PredictiveQuantity`].
 
 pub mod compute;
 pub mod html;
 pub mod plot;
 
 use crate::audit::{Freshness, Verification};
+use crate::calibrate::Samples;
 use crate::calibrate::{PosteriorBody, CAUTION};
 use crate::design::Design;
 use crate::record::Provenance;
 use crate::runs::{RunBody, RunState};
 use crate::study::{Noise, Prior, Study};
 use crate::surrogate::SurrogateBody;
-use compute::{LooOutput, PredictiveQuantity, Samples};
+use compute::{LooOutput, PredictiveQuantity};
 use html::{esc, sig, table};
 use std::collections::BTreeMap;
 use std::fmt::Write as _;
