@@ -11,7 +11,8 @@
 //! happened).
 
 use super::discrepancy::{discrepancy_of, Discrepancy, Hyper, HyperKind};
-use super::likelihood::{Emulator, ExperimentLikelihood};
+use super::emulator::Emulator;
+use super::likelihood::ExperimentLikelihood;
 use super::map::{find_map, with_fixed_discrepancy, MapError, MapEstimate, MapParams};
 use super::posterior::LogPosterior;
 use super::prior::{MvnPrior, Transform};

@@ -10,6 +10,13 @@
 use serde::{Deserialize, Serialize};
 use statrs::distribution::{ContinuousCDF, Normal};
 
+/// R̂ above this suggests the chains have not mixed (Vehtari et al. 2021 recommend 1.01).
+pub const RHAT_WARN: f64 = 1.01;
+/// Fewer effective draws than this, all chains together, make the summaries and tail
+/// quantiles unreliable (Vehtari et al. 2021, §4: bulk and tail ESS above 400, i.e. 100
+/// per chain with four chains).
+pub const ESS_WARN: f64 = 400.0;
+
 /// Diagnostics of one parameter.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 pub struct Diagnostics {

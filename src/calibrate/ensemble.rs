@@ -16,8 +16,8 @@
 //! Foreman-Mackey, D., Hogg, D. W., Lang, D. & Goodman, J. (2013), PASP 125, 306–312
 //! (the parallel two-half update, Algorithm 3).
 
+use super::chain::{initial_point, next_target, Chain, SamplerParams, Termination};
 use super::posterior::LogPosterior;
-use super::sampler::{initial_point, next_target, Chain, SamplerParams, Termination};
 use crate::progress::Observer;
 use rand::Rng;
 use rayon::prelude::*;

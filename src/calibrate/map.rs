@@ -36,9 +36,10 @@
 //! Vetterling, W. T. & Flannery, B. P. (2007), Numerical Recipes, 3rd ed., Cambridge
 //! University Press, §10.5 *(section from memory)*.
 
-use super::likelihood::{Emulator, ExperimentLikelihood};
+use super::chain::initial_point;
+use super::emulator::Emulator;
+use super::likelihood::ExperimentLikelihood;
 use super::posterior::LogPosterior;
-use super::sampler::initial_point;
 use argmin::core::{CostFunction, Executor, State};
 use argmin::solver::neldermead::NelderMead;
 use rayon::prelude::*;

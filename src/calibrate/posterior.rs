@@ -6,7 +6,9 @@
 //! model-discrepancy hyperparameters (sd, length-scale) of each experiment, both in the
 //! study's experiment order. The sampler works on z = (logit θ, ln σ², ln h).
 
-use super::likelihood::{Emulator, ExperimentLikelihood};
+use super::discrepancy::{Hyper, HyperKind};
+use super::emulator::Emulator;
+use super::likelihood::ExperimentLikelihood;
 use super::prior::{ln_prior, InverseGamma, MvnPrior, Transform};
 use crate::study::{Parameter, Prior};
 use std::sync::atomic::{AtomicU64, Ordering};
@@ -432,7 +434,7 @@ impl<'a> LogPosterior<'a> {
 
     /// For each sampled discrepancy hyperparameter, in state order: (experiment, quantity,
     /// kind, prior).
-    pub fn discrepancy_labels(&self) -> Vec<(String, String, super::HyperKind, super::Hyper)> {
+    pub fn discrepancy_labels(&self) -> Vec<(String, String, HyperKind, Hyper)> {
         let mut out = Vec::new();
         for (_, lik) in &self.experiments {
             if let Some(d) = lik.discrepancy() {

@@ -9,8 +9,8 @@
 //! `discrepancy_length_scale.<experiment>.<quantity>`; numbers in shortest round-trip form.
 //! Must not: open files (the caller reads and writes the bytes).
 
+use super::chain::Chain;
 use super::discrepancy::{Hyper, HyperKind};
-use super::sampler::Chain;
 
 /// The samples file's bytes for `chains`: parameters `names` (study order), noise sds of
 /// the experiments `noise_names`, the sampled discrepancy hyperparameters

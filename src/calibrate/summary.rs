@@ -1,10 +1,10 @@
 //! Posterior summaries and the `posterior.yaml` body.
 
-use super::diagnostics::{quantile_sorted, Diagnostics, Pooled};
+use super::chain::{Chain, Restart, SamplerParams, Termination};
+use super::diagnostics::{quantile_sorted, Diagnostics, Pooled, ESS_WARN, RHAT_WARN};
 use super::discrepancy::{Hyper, HyperKind};
 use super::map::{MapEstimate, MapStart, MapTermination};
 use super::posterior::LogPosterior;
-use super::sampler::{Chain, SamplerParams, Termination};
 use crate::study::spec::SamplerChoice;
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
@@ -182,13 +182,6 @@ pub struct PosteriorSummary {
     /// Warnings a reader must see (convergence, effective sample size).
     pub warnings: Vec<String>,
 }
-
-/// R̂ above this suggests the chains have not mixed (Vehtari et al. 2021 recommend 1.01).
-pub const RHAT_WARN: f64 = 1.01;
-/// Fewer effective draws than this, all chains together, make the summaries and tail
-/// quantiles unreliable (Vehtari et al. 2021, §4: bulk and tail ESS above 400, i.e. 100
-/// per chain with four chains).
-pub const ESS_WARN: f64 = 400.0;
 
 /// Moments and quantiles of pooled draws, given in ascending order ([`Pooled::sorted`]).
 fn marginal(sorted: &[f64]) -> Marginal {
@@ -533,7 +526,7 @@ pub struct ChainWire {
     pub termination: Termination,
     /// Set when the chain was stranded and restarted from another halfway through warm-up.
     #[serde(default, skip_serializing_if = "Option::is_none")]
-    pub restarted_from: Option<super::sampler::Restart>,
+    pub restarted_from: Option<Restart>,
     /// Divergent trajectories after warm-up (`sampler: nuts`; left out when 0).
     #[serde(default, skip_serializing_if = "is_zero")]
     pub divergences: usize,
