@@ -14,6 +14,7 @@ pub mod ensemble;
 mod likelihood;
 pub mod map;
 pub mod nuts;
+pub mod params;
 mod posterior;
 mod prior;
 mod sampler;
@@ -28,6 +29,7 @@ pub use likelihood::{
     LikelihoodGradient,
 };
 pub use map::{find_map, with_fixed_discrepancy, MapError, MapEstimate, MapParams};
+pub use params::{CalibrationParams, DiscrepancyParams};
 pub use posterior::LogPosterior;
 pub use prior::{ln_prior, InverseGamma, MvnPrior, Transform};
 pub use sampler::{converged, sample, Chain, Restart, SamplerParams, Termination, STRANDED_GAP};
