@@ -29,7 +29,10 @@
 //! fitness via realized discrepancies. Statistica Sinica 6, 733–807 *(equation number
 //! from memory)*.
 
+pub mod params;
 pub mod refine;
+
+pub use params::RefineParams;
 
 use crate::calibrate::Emulator;
 use crate::study::{Experiment, Noise, Study};

@@ -16,6 +16,7 @@
 mod augment;
 mod error;
 mod lhs;
+pub mod params;
 mod polish;
 mod quality;
 mod sobol;
@@ -31,16 +32,16 @@ pub use lhs::{
     default_polish, default_proposals, latin_hypercube, maximin_latin_hypercube, random_uniform,
     MaximinParams, SearchReport,
 };
+pub use params::{DesignParams, SOBOL_MAX_DIM};
 pub use quality::{
     centered_l2_discrepancy, max_abs_correlation, min_distance, phi_p, quality, Quality, PHI_P,
 };
 pub use sobol::{SobolGenerator, SOBOL_BITS, SOBOL_MAX_POINTS};
-pub use sobol_table::SOBOL_MAX_DIM;
 pub use space::{from_unit, to_unit};
 pub use staleness::mismatch;
 pub use wire::{DesignBody, RoundWire};
 
-use crate::study::{DesignMethod, DesignParams, DesignSpace, Parameter};
+use crate::study::{DesignMethod, DesignSpace, Parameter};
 use ndarray::{concatenate, Array2, Axis};
 
 /// One design point.

@@ -2,9 +2,14 @@
 //! scrambled by a random linear matrix and a digital shift.
 
 use super::error::DesignError;
-use super::sobol_table::{M_INIT, POLY, SOBOL_MAX_DIM};
+use super::params::SOBOL_MAX_DIM;
+use super::sobol_table::{M_INIT, POLY};
 use ndarray::Array2;
 use rand::Rng;
+
+// The study checks Sobol' designs against `params::SOBOL_MAX_DIM`; the generated table
+// must hold exactly that many dimensions (regenerate it, or change the constant).
+const _: () = assert!(super::sobol_table::SOBOL_MAX_DIM == SOBOL_MAX_DIM);
 
 /// Bits of each coordinate: points are k / 2^30, as in scipy's default, so the
 /// unscrambled sequence can be compared with scipy's exactly.

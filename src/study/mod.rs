@@ -6,25 +6,45 @@
 //!
 //! Main types: [`spec::StudySpec`] (the wire shape, `deny_unknown_fields`),
 //! [`Study`] (the resolved, validated working form), [`StudyError`] (one per problem,
-//! naming file, key path and line).
+//! naming file, key path and line). Each stage checks its own settings in its
+//! `params.rs` (e.g. [`DesignParams::check`]), which reads only [`spec`] and
+//! [`issues`]; this module adds the file and the line.
 
+mod checked;
 mod data;
 mod error;
+mod experiments;
+pub mod issues;
 mod locate;
 pub mod placeholder;
+mod schema;
+mod sections;
+mod slurm;
 pub mod spec;
+mod tagged;
 mod validate;
 
+pub use checked::{
+    Experiment, FileTemplate, Noise, OutputFormat, OutputSpec, Parameter, Prior, Simulator, Study,
+};
 pub use data::{FieldData, FieldRow, Target};
 pub use error::{StudyError, StudyErrors};
+pub use issues::{Issue, Issues};
 pub use locate::LineIndex;
-pub use spec::{schema_json, Backend, SlurmSpec};
-pub use validate::{
-    is_folder_name, load, parse, CalibrationParams, DesignMethod, DesignParams, DesignSpace,
-    DiscrepancyParams, Experiment, FileTemplate, HyperparameterMode, HyperpriorChoice,
-    KernelChoice, MeanChoice, Noise, OutputFormat, OutputSpec, Parameter, Prior, RefineParams,
-    Simulator, Study, SurrogateParams,
+pub use schema::schema_json;
+pub use sections::is_folder_name;
+pub use spec::{
+    Backend, DesignMethod, DesignSpace, HyperparameterMode, HyperpriorChoice, KernelChoice,
+    MeanChoice, SlurmSpec,
 };
+pub use validate::{load, parse};
+
+// Each stage's settings live beside the stage (its `params.rs`); these paths stay for
+// the code that reads them through the study.
+pub use crate::calibrate::params::{CalibrationParams, DiscrepancyParams};
+pub use crate::check::params::RefineParams;
+pub use crate::design::params::DesignParams;
+pub use crate::surrogate::params::SurrogateParams;
 
 /// A study parsed from `text` whose every data file reads as `data` (unit tests of the
 /// stages that need a checked study but no files).

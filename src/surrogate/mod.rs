@@ -15,6 +15,7 @@ pub mod gp;
 pub mod holdout;
 pub mod kernel;
 mod model;
+pub mod params;
 mod validation;
 mod wire;
 
@@ -31,5 +32,6 @@ pub use model::{
     fit_surrogate, hyperprior_of, min_runs, pick_holdout, ComponentModel, ExperimentModel,
     FittedSurrogate, LowRankGradient, LowRankPrediction, OutputModel, MIN_RUNS,
 };
+pub use params::SurrogateParams;
 pub use validation::{Validation, ZSummary};
 pub use wire::SurrogateBody;

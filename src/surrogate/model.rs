@@ -7,10 +7,11 @@ use super::fit::{fit_hyperparameters, FitParams, HyperBounds, LengthScalePrior};
 use super::gp::{Gp, Hyper, Trend};
 use super::holdout::{holdout_report, Holdout};
 use super::kernel::Kernel;
+use super::params::SurrogateParams;
 use super::validation::{summarize, Validation};
 use super::SurrogateError;
 use crate::runs::{ExperimentRuns, RunSet};
-use crate::study::{HyperpriorChoice, MeanChoice, Parameter, SurrogateParams};
+use crate::study::{HyperpriorChoice, MeanChoice, Parameter};
 use ndarray::{Array1, Array2, ArrayView2};
 use rayon::prelude::*;
 
