@@ -10,7 +10,7 @@ use crate::check::refine::{
 use crate::layout::{design_sha256, read_posterior, Campaign, DESIGN_FILE, REFINEMENT_FILE};
 use crate::record::{read_record, sha256_file, write_record, Record};
 use crate::runs::RunOptions;
-use crate::study::RefineParams;
+use crate::check::RefineParams;
 use anyhow::{bail, Context, Result};
 
 /// Refine with settings `p` and `n_confirm` confirmation runs per check, running with
