@@ -16,7 +16,7 @@ const PROCESS_STARTS: [&str; 2] = [
     // The simulator: argv[0] resolved against the study folder, arguments as a list.
     "src/runs/local.rs: Command::new(prog)",
     // Slurm's commands, through `slurm_cmd` (checked below).
-    "src/runs/slurm.rs: Command::new(program)",
+    "src/runs/slurm/commands.rs: Command::new(program)",
 ];
 
 /// The programs `slurm_cmd` may start.
@@ -81,11 +81,12 @@ fn no_code_starts_a_shell() {
     want.sort();
     assert_eq!(starts, want, "the places that start processes changed");
     // Besides the calls with literal names, `slurm_cmd` is called with a name only from
-    // within the Slurm module; it is private there.
-    let slurm = std::fs::read_to_string(root.join("src/runs/slurm.rs")).expect("read");
+    // within the Slurm module; it is private there (`pub(super)` in its child
+    // `commands`: seen by the Slurm module's files only).
+    let slurm = std::fs::read_to_string(root.join("src/runs/slurm/commands.rs")).expect("read");
     assert!(
-        slurm.contains("\nfn slurm_cmd(program: &str"),
-        "slurm_cmd is private"
+        slurm.contains("\npub(super) fn slurm_cmd(program: &str"),
+        "slurm_cmd is private to the Slurm module"
     );
 }
 

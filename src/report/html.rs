@@ -1,4 +1,7 @@
-//! Small HTML helpers: escaping, number formatting, tables, the page's CSS.
+//! Small HTML helpers: escaping, number and setting formatting, tables, figures,
+//! warning lists, the page's CSS.
+
+use std::fmt::Write as _;
 
 /// Escape text for HTML element content and double-quoted attribute values.
 pub fn esc(s: &str) -> String {
@@ -98,6 +101,38 @@ nav ol { columns: 2; padding-left: 1.3rem; }
   a { color: inherit; text-decoration: none; }
 }
 "#;
+
+/// A study setting's name as written in the study file (`lhs`, `range`, `linear`).
+pub fn lower(v: impl std::fmt::Debug) -> String {
+    format!("{v:?}").to_lowercase()
+}
+
+/// A plot (or why it is unavailable) as a `<figure>` with its caption; `kind` and
+/// `name` tag it for readers and tests (`data-plot`, `data-name`).
+pub fn figure(kind: &str, name: &str, svg: Result<String, String>, caption: &str) -> String {
+    let body = match svg {
+        Ok(s) => s,
+        Err(e) => format!("<p class=\"warn\">plot unavailable: {}</p>", esc(&e)),
+    };
+    format!(
+        "<figure data-plot=\"{}\" data-name=\"{}\">\n{body}\n<figcaption>{}</figcaption>\n</figure>\n",
+        esc(kind),
+        esc(name),
+        esc(caption)
+    )
+}
+
+/// A list of warnings (nothing when there are none).
+pub fn warnings(h: &mut String, w: &[String]) {
+    if w.is_empty() {
+        return;
+    }
+    h.push_str("<ul class=\"warnings\">\n");
+    for x in w {
+        let _ = writeln!(h, "<li>warning: {}</li>", esc(x));
+    }
+    h.push_str("</ul>\n");
+}
 
 #[cfg(test)]
 mod tests {

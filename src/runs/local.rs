@@ -2,10 +2,9 @@
 //! shell), `jobs` at a time, with a timeout and retries, and record every attempt.
 
 use super::outcome::{exit_failure, read_output, settle, Ended, Outcome};
-use super::plan::{job_ids, Plan, RunsError, Todo};
+use super::plan::{job_ids, Plan, RunSummary, RunsError, Todo};
 use super::prepare::{prepare, Prepared};
 use super::store::{run_record_path, Attempt, RunBody, RunState};
-use super::RunSummary;
 use crate::progress::Observer;
 use crate::record::{write_record, write_record_unsynced, ProvenanceClock, Record};
 use crate::study::{Experiment, Study};

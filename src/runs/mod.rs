@@ -18,7 +18,7 @@ mod store;
 
 pub use identity::{fingerprint, run_key, value_names};
 pub use lock::{acquire as lock_campaign, CampaignLock, LockError};
-pub use plan::{RunsError, SUPERSEDED_DIR};
+pub use plan::{RunSummary, RunsError, SUPERSEDED_DIR};
 pub use store::{
     load_runs, run_dir, run_record_path, same_point, status_counts, Attempt, ExperimentRuns,
     Fingerprint, RunBody, RunSet, RunState, SlurmTask, StateCounts,
@@ -30,23 +30,6 @@ use crate::study::{Backend, Study};
 use anyhow::Result;
 use std::path::Path;
 use std::sync::atomic::AtomicBool;
-
-/// What one `run` invocation did.
-#[derive(Debug, Clone, Default, PartialEq, Eq)]
-pub struct RunSummary {
-    /// Runs already done before this invocation (not repeated).
-    pub skipped: usize,
-    /// Runs that finished now.
-    pub done: usize,
-    /// Runs that failed now (after their retries).
-    pub failed: usize,
-    /// Runs stopped by an interruption (left pending, to run again later).
-    pub interrupted: usize,
-    /// Runs left in Slurm (after `--detach` or an interruption), to collect later.
-    pub in_flight: usize,
-    /// The Slurm array jobs of those runs.
-    pub jobs: Vec<String>,
-}
 
 /// Options of one `run` invocation.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]

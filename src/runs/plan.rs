@@ -1,5 +1,6 @@
 //! The rules every executor shares: which runs to start, which are done, which are
-//! still in Slurm, and whether the simulator changed under done runs.
+//! still in Slurm, and whether the simulator changed under done runs; and the summary
+//! every executor returns.
 
 use super::identity::fingerprint;
 use super::store::{run_dir, run_record_path, same_point, Fingerprint, RunBody, RunState};
@@ -9,6 +10,23 @@ use crate::study::{Experiment, Study};
 use anyhow::{Context, Result};
 use std::collections::BTreeMap;
 use std::path::Path;
+
+/// What one `run` invocation did.
+#[derive(Debug, Clone, Default, PartialEq, Eq)]
+pub struct RunSummary {
+    /// Runs already done before this invocation (not repeated).
+    pub skipped: usize,
+    /// Runs that finished now.
+    pub done: usize,
+    /// Runs that failed now (after their retries).
+    pub failed: usize,
+    /// Runs stopped by an interruption (left pending, to run again later).
+    pub interrupted: usize,
+    /// Runs left in Slurm (after `--detach` or an interruption), to collect later.
+    pub in_flight: usize,
+    /// The Slurm array jobs of those runs.
+    pub jobs: Vec<String>,
+}
 
 /// One run to start (or to collect), with its record from earlier invocations.
 #[derive(Debug, Clone)]

@@ -29,7 +29,6 @@
 //! Technometrics 51(4), 425–438.
 
 use super::gp::Gp;
-use super::model::{unit_inputs, ExperimentModel};
 use super::validation::{summarize, Validation};
 use ndarray::{Array1, ArrayView1, ArrayView2};
 use ndarray_linalg::{FactorizeC, SolveC, UPLO};
@@ -83,6 +82,37 @@ pub struct Holdout {
 }
 
 impl Holdout {
+    /// The holdout validation of a surrogate fitted to `n_fit` runs without the
+    /// held-out ones (`point_ids`): its components' [`mahalanobis_check`]s, and its
+    /// `predicted` mean and marginal variance of every output value at each held-out
+    /// run against their observed `outputs`.
+    pub(crate) fn new(
+        fraction: f64,
+        point_ids: &[String],
+        n_fit: usize,
+        mahalanobis: Vec<MahalanobisCheck>,
+        outputs: &[Vec<f64>],
+        predicted: &[(Vec<f64>, Vec<f64>)],
+    ) -> Holdout {
+        let p = predicted.first().map_or(0, |(m, _)| m.len());
+        // One validation per output value (Q² about that value's own mean), then pooled.
+        let per_value: Vec<Validation> = (0..p)
+            .map(|j| {
+                let y: Vec<f64> = outputs.iter().map(|o| o[j]).collect();
+                let m: Vec<f64> = predicted.iter().map(|(m, _)| m[j]).collect();
+                let sd: Vec<f64> = predicted.iter().map(|(_, v)| v[j].sqrt()).collect();
+                Validation::from_loo(&y, &m, &sd)
+            })
+            .collect();
+        Holdout {
+            fraction,
+            point_ids: point_ids.to_vec(),
+            n_fit,
+            validation: summarize(&per_value.iter().collect::<Vec<_>>()),
+            mahalanobis,
+        }
+    }
+
     /// Plain warnings when the holdout says the surrogate is poor.
     pub fn verdicts(&self) -> Vec<String> {
         let mut out = Vec::new();
@@ -145,42 +175,17 @@ pub fn mahalanobis(gp: &Gp, x: ArrayView2<f64>, y: ArrayView1<f64>) -> f64 {
     e.dot(&s)
 }
 
-/// Validate `model` (fitted without the held-out runs) on them.
-pub(crate) fn holdout_report(
-    model: &ExperimentModel,
-    fraction: f64,
-    point_ids: &[String],
-    inputs: &[Vec<f64>],
-    outputs: &[Vec<f64>],
-) -> Holdout {
-    let x = unit_inputs(inputs, &model.lo, &model.hi);
-    let w = model.basis.weights(outputs);
-    let mahalanobis = model
-        .components
-        .iter()
-        .enumerate()
-        .map(|(k, c)| MahalanobisCheck {
-            component: c.name.clone(),
-            value: mahalanobis(&c.gp, x.view(), w.column(k)),
-            reference: mahalanobis_reference(inputs.len(), c.gp.n_train(), c.gp.n_trend()),
-        })
-        .collect();
-    let p = model.basis.n_values();
-    let preds: Vec<(Vec<f64>, Vec<f64>)> = inputs.iter().map(|t| model.predict(t)).collect();
-    // One validation per output value (Q² about that value's own mean), then pooled.
-    let per_value: Vec<Validation> = (0..p)
-        .map(|j| {
-            let y: Vec<f64> = outputs.iter().map(|o| o[j]).collect();
-            let m: Vec<f64> = preds.iter().map(|(m, _)| m[j]).collect();
-            let sd: Vec<f64> = preds.iter().map(|(_, v)| v[j].sqrt()).collect();
-            Validation::from_loo(&y, &m, &sd)
-        })
-        .collect();
-    Holdout {
-        fraction,
-        point_ids: point_ids.to_vec(),
-        n_fit: model.point_ids.len(),
-        validation: summarize(&per_value.iter().collect::<Vec<_>>()),
-        mahalanobis,
+/// One component's D_MD on the held-out runs (inputs `x` in the unit box, the
+/// component's weights `w` of their outputs) with its reference.
+pub(crate) fn mahalanobis_check(
+    component: &str,
+    gp: &Gp,
+    x: ArrayView2<f64>,
+    w: ArrayView1<f64>,
+) -> MahalanobisCheck {
+    MahalanobisCheck {
+        component: component.to_string(),
+        value: mahalanobis(gp, x, w),
+        reference: mahalanobis_reference(x.nrows(), gp.n_train(), gp.n_trend()),
     }
 }

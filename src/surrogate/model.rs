@@ -5,7 +5,7 @@
 use super::basis::{quantity_groups, Basis};
 use super::fit::{fit_hyperparameters, FitParams, HyperBounds, LengthScalePrior};
 use super::gp::{Gp, Hyper, Trend};
-use super::holdout::{holdout_report, Holdout};
+use super::holdout::{mahalanobis_check, Holdout};
 use super::kernel::Kernel;
 use super::params::SurrogateParams;
 use super::validation::{summarize, Validation};
@@ -576,7 +576,7 @@ fn fit_experiment(
             s,
         )?;
         let out_ids: Vec<String> = out.iter().map(|i| er.point_ids[*i].clone()).collect();
-        Some(holdout_report(
+        Some(holdout_of(
             &model,
             holdout,
             &out_ids,
@@ -596,6 +596,33 @@ fn fit_experiment(
     )?;
     model.holdout = report;
     Ok(model)
+}
+
+/// Validate `model` (fitted without the held-out runs) on them.
+fn holdout_of(
+    model: &ExperimentModel,
+    fraction: f64,
+    point_ids: &[String],
+    inputs: &[Vec<f64>],
+    outputs: &[Vec<f64>],
+) -> Holdout {
+    let x = unit_inputs(inputs, &model.lo, &model.hi);
+    let w = model.basis.weights(outputs);
+    let mahalanobis = model
+        .components
+        .iter()
+        .enumerate()
+        .map(|(k, c)| mahalanobis_check(&c.name, &c.gp, x.view(), w.column(k)))
+        .collect();
+    let predicted: Vec<(Vec<f64>, Vec<f64>)> = inputs.iter().map(|t| model.predict(t)).collect();
+    Holdout::new(
+        fraction,
+        point_ids,
+        model.point_ids.len(),
+        mahalanobis,
+        outputs,
+        &predicted,
+    )
 }
 
 /// Indices of `n_out` spread-out runs to hold out: greedy maximin over the runs' unit
