@@ -1,6 +1,6 @@
 #!/bin/sh
-# Calibration over conditions at the scale of the issue's numpy baseline: a GP over
-# 4 controls and 4 parameters, 250 runs, 30 field observations (issue 12).
+# Calibration over conditions at the scale of our numpy baseline: a GP over
+# 4 controls and 4 parameters, 250 runs, 30 field observations.
 #
 #   benches/controls_8d.sh [assay binary]     (default: target/release/assay)
 #
@@ -11,9 +11,10 @@
 # (t1, t2, t3, t4) = (2, 1, 0.3, 2.5) plus noise of sd 0.02 (seeded awk rand).
 # Runs `assay all` (joint design of 250 points) and prints the fit and calibration
 # times, log-posterior evaluations per second and bulk ESS per second, read from the
-# records. For scale, the issue quotes a hand-written numpy GP-mean likelihood over the
-# same sizes at 7,500 evaluations/s (that baseline counts no surrogate variance and no
-# covariance across conditions; assay's evaluations do both).
+# records. For scale, our reference figure for a hand-written numpy GP-mean likelihood
+# over the same sizes is 7,500 evaluations/s (not measured by this script; that baseline
+# counts no surrogate variance and no covariance across conditions; assay's evaluations
+# do both).
 set -eu
 ASSAY=${1:-target/release/assay}
 case "$ASSAY" in /*) ;; *) ASSAY="$(pwd)/$ASSAY" ;; esac

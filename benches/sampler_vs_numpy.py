@@ -75,7 +75,7 @@ def trend_rows(mean, u):
 
 class ComponentGp:
     """A GP at fixed hyperparameters with the trend's coefficients integrated out
-    (Rasmussen & Williams 2006, eqs. 2.41-2.42)."""
+    (Rasmussen & Williams 2006, eqs. 2.41-2.42; equation numbers from memory)."""
 
     def __init__(self, kernel, mean, x, y, ln_internal, jitter):
         self.kernel, self.mean, self.x = kernel, mean, x

@@ -5,7 +5,8 @@
 //!
 //! Sources: the basis is that of Higdon, Gattiker, Williams & Rightley (2008), JASA
 //! 103(482), 570–583; the Mahalanobis distance and its scaled-F reference are those of
-//! Bastos & O'Hagan (2009), Technometrics 51(4), 425–438.
+//! Bastos & O'Hagan (2009), Technometrics 51(4), 425–438 (the reference's form quoted
+//! from memory, see docs/methods.md).
 
 use assay::surrogate::basis::quantity_groups;
 use assay::surrogate::{mahalanobis, mahalanobis_reference, Basis, Gp, Hyper, Kernel, Trend};

@@ -1,6 +1,7 @@
 //! Calibration options through the command line: the ensemble sampler with
-//! `until_converged`, `prior_from` chaining two campaigns (DESIGN.md "Records"), and the
-//! model discrepancy with its hyperparameters sampled or fixed at their posterior mode.
+//! `until_converged`, `prior_from` chaining two campaigns (the earlier posterior's files
+//! hashed into the provenance, docs/records.md), and the model discrepancy with its
+//! hyperparameters sampled or fixed at their posterior mode.
 
 mod common;
 

@@ -1,7 +1,7 @@
 //! Calibration against closed forms: a one-parameter simulator y = θ with a normal
 //! prior and known noise has a normal posterior (Gelman et al. 2013, Bayesian Data
 //! Analysis 3rd ed., §2.5; Bishop 2006, Pattern Recognition and Machine Learning,
-//! eqs. 2.141–2.142):
+//! eqs. 2.141–2.142; section and equation numbers from memory):
 //!   1/τn² = 1/τ0² + n/σ²,  μn = τn² (μ0/τ0² + n ȳ/σ²).
 
 use assay::calibrate::{
@@ -14,7 +14,7 @@ use std::sync::atomic::AtomicBool;
 /// The posterior mean must be within this many Monte Carlo standard errors
 /// (sd / √ESS) of the exact value: a 4-sigma band fails by chance about once in 16,000.
 const MEAN_N_MCSE: f64 = 4.0;
-/// Relative error allowed on the posterior sd (issue acceptance criterion: 5 %).
+/// Relative error allowed on the posterior sd (our acceptance rule: 5 %).
 const SD_RTOL: f64 = 0.05;
 
 struct Identity;

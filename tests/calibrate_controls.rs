@@ -4,11 +4,11 @@
 //!
 //! The simulator is `tests/fixtures/condsim.sh`, an external process with a control T
 //! (a test temperature, say) and parameters A, B:
-//! - `exp`: y = A exp(−B T), the issue's test;
+//! - `exp`: y = A exp(−B T), our acceptance test;
 //! - `linear`: y = A + B T, linear in the parameters, whose posterior under normal
 //!   priors and known noise is the closed form of Bishop (2006), eqs. 2.116–2.117 (also
-//!   3.49–3.51): S_N⁻¹ = S_0⁻¹ + σ⁻² ΦᵀΦ, m_N = S_N (S_0⁻¹ m_0 + σ⁻² Φᵀ y), with
-//!   Φ's rows (1, T_i).
+//!   3.49–3.51; equation numbers from memory): S_N⁻¹ = S_0⁻¹ + σ⁻² ΦᵀΦ,
+//!   m_N = S_N (S_0⁻¹ m_0 + σ⁻² Φᵀ y), with Φ's rows (1, T_i).
 //!
 //! Field data: 25 temperatures drawn uniformly over the control's range and Gaussian
 //! noise, from a fixed seed (invented data, made here).
@@ -25,7 +25,7 @@ use std::path::{Path, PathBuf};
 /// The posterior mean must be within this many Monte Carlo standard errors of the exact
 /// value: a 4-sigma band fails by chance about once in 16,000.
 const MEAN_N_MCSE: f64 = 4.0;
-/// Relative error allowed on the posterior sd (issue acceptance criterion: 5 %).
+/// Relative error allowed on the posterior sd (our acceptance rule: 5 %).
 const SD_RTOL: f64 = 0.05;
 
 #[derive(Debug, Deserialize)]
@@ -144,7 +144,7 @@ fn posterior(env: &Env) -> Posterior {
     serde_yaml::from_str(&text).unwrap_or_else(|e| panic!("{e}\n{text}"))
 }
 
-/// The issue's test: y = A exp(−B T) with data at 25 random temperatures; the
+/// Our acceptance test: y = A exp(−B T) with data at 25 random temperatures; the
 /// posterior's 95 % intervals cover the true values (A, B) = (100, 0.02).
 #[test]
 fn exponential_decay_over_temperature_covers_the_truth() {
@@ -182,8 +182,8 @@ fn exponential_decay_over_temperature_covers_the_truth() {
     }
 }
 
-/// Linear in the parameters with normal priors: the posterior equals Bishop's closed
-/// form (eqs. 2.116–2.117) to within 4 MCSE on the means and 5 % on the sds. The
+/// Linear in the parameters with normal priors: the posterior equals Bishop's closed form
+/// (eqs. 2.116–2.117, from memory) to within 4 MCSE on the means and 5 % on the sds. The
 /// surrogate (60 runs over T, A, B; linear trend) reproduces y = A + B T far below the
 /// noise, so the surrogate's variance changes the posterior by much less than that.
 #[test]

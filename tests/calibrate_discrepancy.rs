@@ -88,10 +88,10 @@ fn calibrate_biased(discrepancy: bool) -> assay::calibrate::PosteriorSummary {
 }
 
 /// A curve with a systematic bias (Brynjarsdóttir & O'Hagan 2014, §2–3, show the same
-/// effect on their simple machine): without a discrepancy the posterior of k is narrow
-/// and excludes the true value; with one (default weak priors) it is at least three
-/// times wider and its central 95 % interval holds the true value. The discrepancy's
-/// sd and length-scale are sampled and reported.
+/// effect on their simple machine; sections and their content from memory): without a
+/// discrepancy the posterior of k is narrow and excludes the true value; with one
+/// (default weak priors) it is at least three times wider and its central 95 % interval
+/// holds the true value. The discrepancy's sd and length-scale are sampled and reported.
 #[test]
 fn a_biased_curve_gets_a_wider_honest_posterior_with_discrepancy() {
     let without = calibrate_biased(false);

@@ -257,7 +257,7 @@ fn the_joint_posterior_mode_matches_scipy() {
 /// linear-Gaussian one with the noise-plus-discrepancy covariance Σ = σ²I + K_δ(ŝ, ℓ̂)
 /// of every measurement (replicates at one x share δ): Σ_θ = (Λ + AᵀΣ⁻¹A)⁻¹,
 /// m = Σ_θ(AᵀΣ⁻¹y + Λμ₀) (Bishop 2006, Pattern Recognition and Machine Learning,
-/// eqs. 2.116–2.117; equation numbers quoted from memory). Measured with seed 23: the
+/// eqs. 2.116–2.117; equation numbers from memory). Measured with seed 23: the
 /// means within 0.66 and 0.62 MCSE, the sds within 0.33 % and 0.12 %.
 #[test]
 fn theta_sampled_at_the_mode_matches_the_closed_form() {

@@ -30,8 +30,9 @@ fn close(a: f64, b: f64, rtol: f64) -> bool {
 
 #[test]
 fn gp_mean_and_variance_gradients_match_finite_differences() {
-    // R&W 2006 eqs. 2.41–2.42 differentiated, against central differences of
-    // Gp::predict_point; and predict_point against the batch predict.
+    // R&W 2006 eqs. 2.41–2.42 (equation numbers from memory) differentiated (derived
+    // here), against central differences of Gp::predict_point; and predict_point against
+    // the batch predict.
     for (kernel, trend, gp) in gradient_test_gps() {
         for at in [[0.31, 0.52, 0.17], [0.9, 0.05, 0.66], [1.2, -0.1, 0.5]] {
             let a = Array1::from(at.to_vec());

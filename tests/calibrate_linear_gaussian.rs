@@ -7,8 +7,8 @@
 //! Writing the measurements as y = Aθ + ε, ε ~ N(0, L⁻¹), L = I/σ², the posterior is
 //! θ | y ~ N(m, Σ),  Σ = (Λ + Aᵀ L A)⁻¹,  m = Σ (Aᵀ L y + Λ μ₀)
 //! (Bishop 2006, Pattern Recognition and Machine Learning, eqs. 2.113–2.117 with b = 0;
-//! Murphy 2012, Machine Learning: A Probabilistic Perspective, §4.4.1; equation numbers
-//! quoted from memory).
+//! Murphy 2012, Machine Learning: A Probabilistic Perspective, §4.4.1; equation and
+//! section numbers from memory).
 //!
 //! The emulator is exact (the polynomial, zero predictive variance) and the prior
 //! ranges span ±30 prior sds, so the truncation removes no measurable mass. The
@@ -32,7 +32,8 @@ use ndarray::{Array1, Array2};
 use ndarray_linalg::Inverse;
 use std::sync::atomic::AtomicBool;
 
-/// Absolute error allowed on the posterior correlation of θ₁ and θ₂ (the brief's 0.05).
+/// Absolute error allowed on the posterior correlation of θ₁ and θ₂ (our acceptance
+/// rule: 0.05).
 /// The Monte Carlo sd of a sample correlation ρ̂ is about (1 − ρ²)/√ESS, under 0.01 here.
 const CORR_ATOL: f64 = 0.05;
 
@@ -91,9 +92,10 @@ fn field_data() -> Vec<Vec<f64>> {
     values
 }
 
-/// Exact posterior mean and covariance from Bishop's eqs. 2.116–2.117 with the noise
-/// precision L = Σ⁻¹ of a known covariance Σ of every measurement: `cov(x_a, x_b, same)`
-/// for two measurements at stations x_a, x_b (`same`: one measurement).
+/// Exact posterior mean and covariance from Bishop's eqs. 2.116–2.117 (from memory) with
+/// the noise precision L = Σ⁻¹ of a known covariance Σ of every measurement:
+/// `cov(x_a, x_b, same)` for two measurements at stations x_a, x_b (`same`: one
+/// measurement).
 fn exact(values: &[Vec<f64>], cov: impl Fn(f64, f64, bool) -> f64) -> (Array1<f64>, Array2<f64>) {
     let rows: Vec<(f64, f64)> = XS
         .iter()
@@ -182,7 +184,7 @@ const DELTA_ELL: f64 = 0.3;
 /// The same curve with a fixed squared-exponential model discrepancy (Kennedy & O'Hagan
 /// 2001): the measurements' covariance is Σ = σ²I + K_δ, K_δ = s² exp(−(x − x′)²/(2ℓ²))
 /// (replicates at one x share δ), and the posterior is the linear-Gaussian one with that
-/// Σ (Bishop 2006, eqs. 2.116–2.117 with L = Σ⁻¹).
+/// Σ (Bishop 2006, eqs. 2.116–2.117 with L = Σ⁻¹; equation numbers from memory).
 /// The likelihood with the fixed discrepancy, and the exact posterior (m, cov).
 fn fixed_discrepancy_case() -> (ExperimentLikelihood, Array1<f64>, Array2<f64>) {
     let values = field_data();

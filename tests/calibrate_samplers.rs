@@ -2,10 +2,12 @@
 //! calibration, against closed forms.
 //!
 //! The reference posterior is the conjugate normal mean with known variance (Gelman et
-//! al. 2013, Bayesian Data Analysis 3rd ed., §2.5; Bishop 2006, eqs. 2.141–2.142):
+//! al. 2013, Bayesian Data Analysis 3rd ed., §2.5; Bishop 2006, eqs. 2.141–2.142; section
+//! and equation numbers from memory):
 //!   1/τn² = 1/τ0² + n/σ²,  μn = τn² (μ0/τ0² + n ȳ/σ²).
 //! Sequential updating — the posterior after the first data is the prior for the second
-//! — gives the same posterior as all data at once (BDA3 §2.5, "posterior as prior").
+//! — gives the same posterior as all data at once (BDA3 §2.5, "posterior as prior";
+//! section and wording from memory).
 
 use assay::calibrate::{
     converged, sample, summarize, Chain, Emulator, ExperimentLikelihood, LogPosterior, MvnPrior,
@@ -21,7 +23,7 @@ use std::sync::atomic::AtomicBool;
 /// The posterior mean must be within this many Monte Carlo standard errors of the exact
 /// value: a 4-sigma band fails by chance about once in 16,000.
 const MEAN_N_MCSE: f64 = 4.0;
-/// Relative error allowed on the posterior sd (issue acceptance criterion: 5 %).
+/// Relative error allowed on the posterior sd (our acceptance rule: 5 %).
 const SD_RTOL: f64 = 0.05;
 
 struct Identity;
@@ -233,7 +235,8 @@ fn mvn_prior_has_the_sample_moments_and_normal_density() {
             assert!((c[[a, b]] - cov(a, b)).abs() < 1e-12);
         }
     }
-    // Bivariate normal density in closed form (e.g. Bishop 2006, eq. 2.43 with d = 2).
+    // Bivariate normal density in closed form (e.g. Bishop 2006, eq. 2.43 with d = 2;
+    // equation number from memory).
     let (s11, s22, s12) = (cov(0, 0), cov(1, 1), cov(0, 1));
     let det = s11 * s22 - s12 * s12;
     let x = [0.7, 1.1];

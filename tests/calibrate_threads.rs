@@ -1,6 +1,6 @@
-//! Reproducibility: the same seed gives the same samples bit for bit whatever the
-//! number of threads (issue 7). Chain i draws from random stream i of the seed
-//! (`src/rng.rs`), so the draws cannot depend on which thread runs which chain.
+//! Reproducibility: the same seed gives the same samples bit for bit whatever the number
+//! of threads (docs/methods.md, "Random streams"). Chain i draws from random stream i of
+//! the seed (`src/rng.rs`), so the draws cannot depend on which thread runs which chain.
 //!
 //! The posterior includes an estimated noise variance, so the noise state and its
 //! starting draw are covered as well as the parameters.

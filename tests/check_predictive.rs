@@ -70,7 +70,7 @@ fn binomial_band(n: usize) -> [f64; 2] {
     ]
 }
 
-/// The acceptance check: on the bundled cantilever, the predictive coverage of
+/// Our acceptance check: on the bundled cantilever, the predictive coverage of
 /// the invented field data lies inside the binomial 99 % band around 0.95.
 #[test]
 fn cantilever_field_data_are_covered_as_the_binomial_band_expects() {

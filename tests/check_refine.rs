@@ -7,7 +7,7 @@
 //! (A, B) = (0.4, 0.3) plus fixed offsets of at most one noise sd (0.05) — invented
 //! numbers, written below. Near A = 0.4 the output changes fast with A; over most of
 //! the box it hardly changes, so 12 space-filling runs leave the surrogate poor exactly
-//! where the posterior lives. What is checked is the acceptance test: one round
+//! where the posterior lives. What is checked is our acceptance test: one round
 //! of runs among the posterior draws cuts the surrogate's error there (the confirmation
 //! RMSE at posterior draws) at least 3-fold, and the final 95 % intervals contain the
 //! true values.

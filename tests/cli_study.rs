@@ -1,6 +1,6 @@
 //! The study parser through the command line: `assay validate` on a good study and on
 //! one broken study per kind of error. Every error must exit with code 2 and name the
-//! file, the key path and the line (DESIGN.md, "Command line" and "Study file").
+//! file, the key path and the line (docs/study.md, "How errors are reported").
 //!
 //! Expected line numbers are not typed in: each is the line of the minimal study (see
 //! `common::Env::minimal_study`) that holds the edited text, found with `line_of`.
@@ -10,7 +10,8 @@ mod common;
 use common::{edit, line_of, Env, EXPERIMENT};
 use std::path::Path;
 
-/// Exit code for bad input (DESIGN.md, "Command line").
+/// Exit code for bad input (README.md lists the exit codes: 0 success, 2 bad input,
+/// 3 finished but some runs failed, 1 anything else).
 const EXIT_BAD_INPUT: i32 = 2;
 
 /// Run `assay validate` on `study`; assert exit code 2 and return the `error:` lines.

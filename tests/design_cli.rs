@@ -1,7 +1,8 @@
 //! `assay design` through the command line: quality and rounds in `design.yaml`,
 //! `--add N` (old points and their runs untouched, new ids continue, the round is
 //! recorded) and the bad-input cases (exit 2, messages pinned). Records are decoded
-//! with this file's own structs, so a renamed key fails a test (DESIGN.md, "Records").
+//! with this file's own structs, so a renamed key fails a test (the keys are documented
+//! one by one in docs/records.md).
 
 mod common;
 

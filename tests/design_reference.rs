@@ -85,8 +85,9 @@ fn unscrambled_sobol_equals_scipy_first_1024_points_in_10_dimensions() {
 #[test]
 fn the_table_holds_at_least_21_dimensions_and_every_one_is_a_01_sequence() {
     // Each one-dimensional projection of a Sobol' sequence is a (0, 1)-sequence in base
-    // 2: the first 2^m points put one point in each interval [k/2^m, (k+1)/2^m)
-    // (Sobol' 1967; Joe & Kuo 2008, §2). A typo in a direction number breaks this.
+    // 2: the first 2^m points put one point in each interval [k/2^m, (k+1)/2^m) (Sobol'
+    // 1967; Joe & Kuo 2008, §2; section number from memory). A typo in a direction number
+    // breaks this.
     const { assert!(SOBOL_MAX_DIM >= 21) };
     let m = 10;
     let x = SobolGenerator::new(SOBOL_MAX_DIM)

@@ -11,8 +11,8 @@ use std::collections::BTreeMap;
 const RHAT_RTOL: f64 = 1e-9;
 const ESS_RTOL: f64 = 1e-8;
 /// The quantile MCSE is half a difference of two order statistics picked through a beta
-/// quantile (statrs vs scipy): equal indices give equal values; the 1e-6 leaves
-/// room for nothing else, so a different index fails.
+/// quantile (statrs vs scipy): equal indices give equal values; our acceptance rule's
+/// 1e-6 leaves room for nothing else, so a different index fails.
 const MCSE_QUANTILE_ATOL: f64 = 1e-6;
 
 #[derive(Deserialize)]

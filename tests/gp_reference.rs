@@ -5,7 +5,7 @@ use assay::surrogate::{Gp, Hyper, Kernel, Trend};
 use ndarray::{Array1, Array2};
 use serde::Deserialize;
 
-/// Agreement with scikit-learn to 1e-8 relative (the acceptance level). Both use
+/// Agreement with scikit-learn to 1e-8 relative (our acceptance level). Both use
 /// LAPACK Cholesky in double precision, so differences are round-off of O(cond(K)·ε);
 /// measured: at most 2e-14 (likelihood, gradient, means) and 3e-13 (sds) relative on
 /// these cases, so the bound has five orders of magnitude of room.

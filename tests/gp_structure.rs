@@ -132,8 +132,8 @@ fn interpolates_the_data_as_the_nugget_goes_to_zero() {
 
 #[test]
 fn trend_uncertainty_widens_the_variance_far_from_data() {
-    // R&W eq. 2.42: the basis-function term Rᵀ A⁻¹ R is ≥ 0, so integrating the trend out
-    // never narrows the predictive variance.
+    // R&W eq. 2.42 (equation number from memory): the basis-function term Rᵀ A⁻¹ R
+    // is ≥ 0, so integrating the trend out never narrows the predictive variance.
     let (x, y) = data(10, 2);
     let h = hyper(2, (1e-6f64).ln());
     let far = Array2::from_shape_vec((1, 2), vec![3.0, -2.0]).unwrap();

@@ -1,12 +1,13 @@
 //! The low-rank-plus-diagonal likelihood against a dense multivariate normal density.
 //!
 //! The Woodbury identity and the matrix determinant lemma (Rasmussen & Williams 2006,
-//! Gaussian Processes for Machine Learning, §A.3, eqs. A.9–A.10) make the evaluation
-//! O(p K²); here it is compared with a dense Cholesky factorisation of the p × p
-//! covariance on random small problems (property-based), and the replicate-aware
-//! likelihood with its sufficient statistics (BDA3 §2.5, §3.2) is compared with the
-//! dense density of every single measurement, also with a model-discrepancy term
-//! (Kennedy & O'Hagan 2001) whose dense base is factored and reused.
+//! Gaussian Processes for Machine Learning, §A.3, eqs. A.9–A.10; section and equation
+//! numbers from memory) make the evaluation O(p K²); here it is compared with a dense
+//! Cholesky factorisation of the p × p covariance on random small problems
+//! (property-based), and the replicate-aware likelihood with its sufficient statistics
+//! (BDA3 §2.5, §3.2; section numbers from memory) is compared with the dense density of
+//! every single measurement, also with a model-discrepancy term (Kennedy & O'Hagan 2001)
+//! whose dense base is factored and reused.
 
 use assay::calibrate::discrepancy::DiscrepancyBlock;
 use assay::calibrate::{
@@ -129,7 +130,7 @@ proptest! {
 }
 
 /// The correlation functions written out here, independently of assay's kernels
-/// (Rasmussen & Williams 2006, eqs. 4.9 and 4.17).
+/// (Rasmussen & Williams 2006, eqs. 4.9 and 4.17; equation numbers from memory).
 fn corr(kernel: Kernel, d: f64, l: f64) -> f64 {
     let r = d / l;
     match kernel {

@@ -1,12 +1,13 @@
-//! The corpus of broken inputs (`tests/corpus/<case>/`): study files and field-data
-//! files that are wrong in one way each. `assay validate` must refuse every one with
-//! exit code 2 (bad input, DESIGN.md "Command line") and one `error:` line that names
-//! the file, the line and the key where they are known, and says what is wrong.
+//! The corpus of broken inputs (`tests/corpus/<case>/`): study files and field-data files
+//! that are wrong in one way each. `assay validate` must refuse every one with exit code
+//! 2 (bad input, docs/study.md "How errors are reported") and one `error:` line that
+//! names the file, the line and the key where they are known, and says what is wrong.
 //!
 //! Each case folder holds `study.yaml`, its field data `field-A.csv` and the template
 //! `deck.tmpl`; a case differs from the others only in what it breaks. The table below
 //! pins the start of the first error line (after `error: `), so the wording is part of
-//! the interface (STYLE.md, "Errors"). Reproduce one by hand with
+//! the interface (the error format of docs/study.md, "How errors are reported"; a
+//! message says what is wrong and, where it can, what to do). Reproduce one by hand with
 //! `cd tests/corpus/<case> && assay validate study.yaml`.
 
 mod common;
@@ -15,7 +16,8 @@ use std::collections::BTreeSet;
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
-/// Exit code for bad input (DESIGN.md, "Command line").
+/// Exit code for bad input (README.md lists the exit codes: 0 success, 2 bad input,
+/// 3 finished but some runs failed, 1 anything else).
 const EXIT_BAD_INPUT: i32 = 2;
 
 /// Case folder → the start of its first error line, as printed by `assay validate
@@ -138,7 +140,7 @@ fn every_case_folder_is_in_the_table_and_every_entry_has_a_folder() {
     let table: BTreeSet<String> = CASES.iter().map(|(c, _)| c.to_string()).collect();
     assert_eq!(table.len(), CASES.len(), "a case is listed twice");
     assert_eq!(folders, table, "tests/corpus and the table disagree");
-    // The corpus promised by the issue: at least 40 broken inputs.
+    // Our acceptance rule for the corpus: at least 40 broken inputs.
     assert!(CASES.len() >= 40);
 }
 
@@ -188,7 +190,7 @@ fn the_corpus_base_study_is_valid() {
 
 #[test]
 fn duplicated_x_values_in_field_data_are_replicates_not_an_error() {
-    // DESIGN.md, "Field data": repeated x values are replicates. The corpus therefore
+    // docs/study.md, "Field data": repeated x values are replicates. The corpus therefore
     // holds a duplicated *column* (ambiguous), not duplicated x values (valid).
     let dir = copy_of("data-duplicated-column");
     std::fs::write(

@@ -2,10 +2,11 @@
 //! each followed by a resumed run. With real processes: the simulator is a shell script
 //! that appends to an invocation log, the ground truth of what really ran.
 //!
-//! What must hold (DESIGN.md, "The job", item 2): no finished run is started again, no
-//! run is lost, every simulator invocation is used exactly once (an attempt orphaned by
-//! the kill is adopted, not repeated), and `assay verify` finds the records consistent
-//! with the output files at the end.
+//! What must hold (README.md and docs/records.md, `run.yaml` life cycle: finished runs
+//! are never repeated, and an attempt left by a killed assay is adopted): no finished run
+//! is started again, no run is lost, every simulator invocation is used exactly once (an
+//! attempt orphaned by the kill is adopted, not repeated), and `assay verify` finds the
+//! records consistent with the output files at the end.
 
 mod common;
 
@@ -15,7 +16,7 @@ use std::path::{Path, PathBuf};
 use std::process::{Command, Stdio};
 use std::time::Duration;
 
-/// Kills, as the issue asks.
+/// Kills (our acceptance rule: 10).
 const N_KILLS: usize = 10;
 /// Design points: more than the kills let finish (about three runs per cycle), so
 /// every kill lands in a campaign that is still running.

@@ -3,7 +3,8 @@
 //! `tests/fixtures/testsim.sh` and its failure modes.
 //!
 //! Records are decoded with this file's own structs (not the crate's), so a renamed key
-//! in `run.yaml` or `design.yaml` fails a test (DESIGN.md, "Records").
+//! in `run.yaml` or `design.yaml` fails a test (the keys are documented one by one in
+//! docs/records.md).
 
 mod common;
 
@@ -14,7 +15,8 @@ use std::collections::BTreeMap;
 use std::path::Path;
 use std::time::Duration;
 
-/// Exit code when every run finished but some failed (DESIGN.md, "Command line").
+/// Exit code when every run finished but some failed (README.md lists the exit codes:
+/// 0 success, 2 bad input, 3 finished but some runs failed, 1 anything else).
 const EXIT_RUNS_FAILED: i32 = 3;
 
 /// Tolerance on a run's output values against A + B·x. The simulator prints 17
@@ -564,7 +566,8 @@ fn a_campaign_locked_by_another_process_is_refused_and_then_resumed() {
     let before = std::fs::read(env.run_record(&busy.id)).expect("run.yaml");
 
     let (code, stderr) = run_with_stderr(&env, &study, &[]);
-    // A held lock is neither bad input nor a failed run: exit code 1 (DESIGN.md).
+    // A held lock is neither bad input nor a failed run: exit code 1 (docs/records.md,
+    // "The campaign folder").
     assert_eq!(code, Some(1), "{stderr}");
     assert!(
         stderr.contains("is in use by another assay process"),
@@ -710,8 +713,8 @@ fn template_files_are_rendered_into_the_run_folder() {
     let (code, out) = design_and_run(&env, &study);
     assert_eq!(code, Some(0), "{out}");
     for p in read_design(&env) {
-        // Numbers render in shortest round-trip form (DESIGN.md), which is Rust's `{}`;
-        // run_id is `<point>-<experiment>`.
+        // Numbers render in shortest round-trip form (docs/study.md, "Placeholders"),
+        // which is Rust's `{}`; run_id is `<point>-<experiment>`.
         let deck =
             std::fs::read_to_string(env.run_folder(&p.id).join("deck.inp")).expect("deck.inp");
         assert_eq!(

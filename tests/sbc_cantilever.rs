@@ -1,7 +1,7 @@
 //! Simulation-based calibration (Talts, Betancourt, Simpson, Vehtari & Gelman 2018,
 //! "Validating Bayesian inference algorithms with simulation-based calibration",
-//! arXiv:1804.06788, Algorithm 1) of the sampler and likelihood on the bundled
-//! cantilever.
+//! arXiv:1804.06788, Algorithm 1; algorithm number from memory) of the sampler and
+//! likelihood on the bundled cantilever.
 //!
 //! Each replication draws θ̃ = (E, k_θ) from the study's priors (truncated to the
 //! ranges), simulates field data from the **simulator's closed form** (the formula of
@@ -22,13 +22,13 @@ use rand_distr::StandardNormal;
 use statrs::distribution::{ChiSquared, ContinuousCDF};
 use std::sync::atomic::AtomicBool;
 
-/// Replications (the figure).
+/// Replications (our acceptance rule: 200).
 const N_REPLICATIONS: usize = 200;
 /// Thinned posterior draws per replication: ranks take L + 1 = 100 values.
 const L: usize = 99;
 /// Histogram bins; 100 rank values / 10 = 10 ranks per bin, expected count 20.
 const N_BINS: usize = 10;
-/// Significance level of the uniformity test (the 1 %).
+/// Significance level of the uniformity test (our acceptance rule: 1 %).
 const ALPHA: f64 = 0.01;
 
 /// The bundled study's settings (models/cantilever/study.yaml and its simulator's
@@ -140,7 +140,7 @@ fn cantilever_ranks_are_uniform() {
         );
         let pooled: Vec<&Vec<f64>> = chains.iter().flat_map(|c| &c.theta).collect();
         // Thin evenly to L draws, far apart in each chain (autocorrelation, Talts et al.
-        // §4.1).
+        // §4.1; section number and its content from memory).
         let thinned: Vec<&Vec<f64>> = (0..L).map(|k| pooled[k * pooled.len() / L]).collect();
         for (j, t) in truth.iter().enumerate() {
             let rank = thinned.iter().filter(|d| d[j] < *t).count();

@@ -21,7 +21,8 @@ use std::time::{Duration, Instant};
 /// needs to know which tasks are still waiting.
 static SLURM: Mutex<()> = Mutex::new(());
 
-/// Exit code when every run finished but some failed (DESIGN.md, "Command line").
+/// Exit code when every run finished but some failed (README.md lists the exit codes:
+/// 0 success, 2 bad input, 3 finished but some runs failed, 1 anything else).
 const EXIT_RUNS_FAILED: i32 = 3;
 
 /// True when Slurm answers. Without Slurm: skipped with a message, or a failure in CI.

@@ -1,7 +1,7 @@
 //! Unknown measurement noise through the command line: validation of the inverse-gamma
 //! prior (one test per invariant, exact message), and the records of a calibration that
 //! estimates the noise (`posterior.yaml` key `noise`, the samples CSV column
-//! `noise_sd.<experiment>` before `log_posterior`, DESIGN.md "Records").
+//! `noise_sd.<experiment>` before `log_posterior`, docs/records.md).
 
 mod common;
 
@@ -9,7 +9,8 @@ use common::{edit, line_of, Env, EXPERIMENT};
 use serde::Deserialize;
 use std::collections::BTreeMap;
 
-/// Exit code for bad input (DESIGN.md, "Command line").
+/// Exit code for bad input (README.md lists the exit codes: 0 success, 2 bad input,
+/// 3 finished but some runs failed, 1 anything else).
 const EXIT_BAD_INPUT: i32 = 2;
 
 const UNKNOWN_NOISE: &str = "noise: {unknown: {shape: 3.0, scale: 0.05}}";

@@ -31,8 +31,8 @@ fn close(a: f64, b: f64) -> bool {
 
 #[test]
 fn mean_gradient_matches_finite_differences_for_every_kernel_and_trend() {
-    // Structural check: the analytic ∂m/∂x (R&W 2006 eq. 2.41 differentiated) against
-    // central differences of Gp::predict.
+    // Structural check: the analytic ∂m/∂x (R&W 2006 eq. 2.41, equation number from
+    // memory, differentiated: derived here) against central differences of Gp::predict.
     for (kernel, trend, gp) in gradient_test_gps() {
         for at in [[0.31, 0.52, 0.17], [0.9, 0.05, 0.66]] {
             let g = gp.mean_gradient(Array1::from(at.to_vec()).view());

@@ -1,11 +1,12 @@
 //! The surrogate on an open test function: the Borehole function (Harper & Gupta 1983;
 //! input ranges of Morris, Mitchell & Ylvisaker 1993, Technometrics 35(3), 243–255;
-//! formula and ranges quoted from memory). Water flow through a borehole, 8 inputs.
+//! formula, ranges, issue and pages quoted from memory). Water flow through a borehole,
+//! 8 inputs.
 
 use assay::surrogate::{fit_hyperparameters, FitParams, HyperBounds, Kernel, Trend};
 use ndarray::{Array1, Array2};
 
-/// Issue acceptance criteria: held-out RMSE below 1 % of the output's sd, and the
+/// Our acceptance rule: held-out RMSE below 1 % of the output's sd, and the
 /// fraction of held-out points inside the 95 % band between 0.85 and 1.
 const RMSE_FRACTION_MAX: f64 = 0.01;
 const COVERAGE_MIN: f64 = 0.85;
@@ -93,8 +94,8 @@ fn borehole_is_reproduced_to_one_percent_of_its_spread() {
 /// of the search. Before the objective was taken per training point, its gradient at the
 /// central start (|g| ≈ 500) made the first L-BFGS step leave the region where K can be
 /// factored and the search stopped after two factorisations, with a held-out RMSE of
-/// 11 % of the sd. The acceptance level is the issue's 1 % (Harper & Gupta's function,
-/// as above).
+/// 11 % of the sd. The acceptance level is our 1 % (Harper & Gupta's function, as
+/// above).
 #[test]
 fn borehole_with_a_thousand_runs_is_fitted_not_left_at_the_start() {
     let mut rng = assay::rng::stream(7, 0);

@@ -19,7 +19,7 @@ Deflection (same formula as the `cantilever` simulator, src/main.rs):
 
 first term: Euler-Bernoulli cantilever under a tip load (Young & Budynas,
 Roark's Formulas for Stress and Strain, 7th ed., 2002, Table 8.1, case 1a with
-the load at the free end); second term: rigid rotation of the root spring
+the load at the free end; table and case numbers from memory); second term: rigid rotation of the root spring
 under the root moment P L.
 """
 

@@ -10,8 +10,11 @@ Writes models/tensile-bar/field-A.csv and models/tensile-bar/field-B.csv
 (header `displacement,force`; displacement in mm, force in kN).
 Python 3 standard library only. See models/tensile-bar/DATA.md.
 
-Everything here is invented: the specimens, the "true" material values and the
-noise. The data are for demonstrating calibration, not for design.
+Invented here: the "true" material values, the noise and so the data. The specimen
+gauge dimensions and grip widths are not invented: they are those of the usual standard
+(50 x 12.5 mm gauge, 20 mm grips) and sub-size (25 x 6 mm gauge, 10 mm grips) flat
+specimens of common tension-test practice (from memory); the thickness, end lengths and
+taper are our choices. The data are for demonstrating calibration, not for design.
 
 The forces are not computed here: the script renders bar.tmpl (the same template
 assay renders for every run) at the invented true values and the experiment's

@@ -1,5 +1,6 @@
-//! The acceptance bands of the calibration tests against exact posteriors (issue 7:
-//! "posterior mean within 4 MCSE, sd within 5 %") and their check over a summary.
+//! The acceptance bands of the calibration tests against exact posteriors (our
+//! acceptance rule, docs/methods.md "How the numbers are checked": posterior mean within
+//! 4 MCSE, sd within 5 %) and their check over a summary.
 
 use assay::calibrate::PosteriorSummary;
 use ndarray::{Array1, Array2};
@@ -7,7 +8,7 @@ use ndarray::{Array1, Array2};
 /// The posterior mean must be within this many Monte Carlo standard errors of the exact
 /// value: a 4-sigma band fails by chance about once in 16,000 per parameter.
 pub const MEAN_N_MCSE: f64 = 4.0;
-/// Relative error allowed on each posterior sd (issue 7 acceptance criterion: 5 %).
+/// Relative error allowed on each posterior sd (our acceptance rule: 5 %).
 pub const SD_RTOL: f64 = 0.05;
 /// Convergence threshold recommended by Vehtari et al. (2021).
 pub const RHAT_MAX: f64 = 1.01;

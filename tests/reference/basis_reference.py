@@ -21,10 +21,11 @@ Writes (to stdout) a JSON fixture with two parts.
    the nugget. For the zero-mean GP, m and V come from scikit-learn's
    GaussianProcessRegressor (optimizer=None, alpha=g, predict(return_cov=True));
    for a GP with a constant trend integrated out, from a direct numpy evaluation
-   of Rasmussen & Williams (2006) eqs. 2.41-2.42. The reference distribution
-   m(n-q-2)/(n-q) * F(m, n-q) is summarised with scipy.stats.f (mean, variance,
-   2.5 % and 97.5 % quantiles); the script checks that its mean and variance
-   equal m and 2m(m+n-q-2)/(n-q-4).
+   of Rasmussen & Williams (2006) eqs. 2.41-2.42 (equation numbers from memory).
+   The reference distribution m(n-q-2)/(n-q) * F(m, n-q) is summarised with
+   scipy.stats.f (mean, variance, 2.5 % and 97.5 % quantiles); the script checks that its mean and variance
+   equal m and 2m(m+n-q-2)/(n-q-4). (The scaled-F form is quoted from memory of
+   Bastos & O'Hagan; the check is that these moments follow from it.)
 
 How to run (from the repository root):
 
@@ -129,7 +130,8 @@ def md_zero_mean(name, rng, n, m, d, signal_var, ls, nugget):
     v = cov + nugget * np.eye(m)
     e = ys - mu
     md = float(e @ np.linalg.solve(v, e))
-    # Cross-check scikit-learn's covariance with a direct evaluation (eq. 2.26).
+    # Cross-check scikit-learn's covariance with a direct evaluation (R&W eq. 2.26,
+    # from memory).
     k = matern52(x, x, signal_var, ls) + nugget * np.eye(n)
     ks = matern52(xs, x, signal_var, ls)
     cov2 = matern52(xs, xs, signal_var, ls) - ks @ np.linalg.solve(k, ks.T)

@@ -14,8 +14,8 @@ assessing convergence of MCMC", Bayesian Analysis 16(2), 667-718 (2021):
              indicators I(x <= q_0.05) and I(x <= q_0.95);
              arviz.ess(draws, method="tail")
 * mcse_quantile - Monte Carlo standard error of the 2.5 %, 50 % and 97.5 %
-             quantiles (the paper's section 4.3): the ESS N of the indicator
-             I(x <= q_p) over split chains, the Beta(N p + 1, N (1 - p) + 1)
+             quantiles (the paper's section 4.3, from memory): the ESS N of the
+             indicator I(x <= q_p) over split chains, the Beta(N p + 1, N (1 - p) + 1)
              quantiles a, b at 0.1586553 and 0.8413447, then half the distance
              between the sorted draws at floor(max(a S - 1, 0)) and
              ceil(min(b S - 1, S - 1)); arviz.mcse(draws, method="quantile", prob=p)
@@ -171,7 +171,8 @@ def direct_rhat(x):
 
 
 def direct_ess(x):
-    """ESS of a (chain, draw) array (paper eqs. 10-11 with Geyer's initial monotone sequence)."""
+    """ESS of a (chain, draw) array (paper eqs. 10-11, from memory, with Geyer's initial
+    monotone sequence)."""
     m, n = x.shape
     if np.ptp(x) < np.finfo(float).resolution:
         return float(x.size)

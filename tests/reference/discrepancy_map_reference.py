@@ -13,7 +13,8 @@ The model (every measurement its own row; replicates at one x share delta):
 
 rho the squared-exponential exp(-r^2/2) or the Matern 5/2
 (1 + sqrt(5) r + 5 r^2/3) exp(-sqrt(5) r) correlation (Rasmussen & Williams,
-Gaussian Processes for Machine Learning, MIT Press 2006, eqs. 4.9 and 4.17).
+Gaussian Processes for Machine Learning, MIT Press 2006, eqs. 4.9 and 4.17;
+equation numbers from memory).
 delta is integrated out, so y ~ N(A theta, sigma^2 I + K_delta), and the log
 posterior, up to the priors' normalising constants exactly as assay leaves
 them out (docs/methods.md section 4), is
@@ -33,10 +34,11 @@ fatol 1e-14); the best wins, and it must lie inside the box.
 Independent check (the script stops with an error if it fails): theta is
 profiled out in closed form (for a fixed covariance S the maximising theta is
 the linear-Gaussian posterior mean, Bishop, Pattern Recognition and Machine
-Learning, 2006, eqs. 2.116-2.117 with L = S^-1); a brute-force grid over
-(ln s, ln l) [and ln sigma^2] near the optimum must find no value above it and
-its best point must lie within one grid step of it, and a coarse grid over a
-wide box (recorded in the fixture) must find no value above it either.
+Learning, 2006, eqs. 2.116-2.117 with L = S^-1, equation numbers from memory);
+a brute-force grid over (ln s, ln l) [and ln sigma^2] near the optimum must find
+no value above it and its best point must lie within one grid step of it, and a
+coarse grid over a wide box (recorded in the fixture) must find no value above it
+either.
 
 Also written: the Laplace standard deviations at the mode (square roots of the
 diagonal of the inverse Hessian of -lp in u, by central differences), so the
@@ -138,7 +140,7 @@ def ln_posterior(case, u):
 
 
 def profile(case, noise_var, s, l):
-    """max over theta of lp at fixed (noise_var, s, l): Bishop eqs. 2.116-2.117."""
+    """max over theta of lp at fixed (noise_var, s, l): Bishop eqs. 2.116-2.117 (from memory)."""
     a, y = design(case)
     cov = covariance(case, noise_var, s, l)
     prec = np.linalg.inv(cov)

@@ -13,7 +13,7 @@ K_y = K + noise_var * I), its gradient with respect to
 theta = [ln signal_var, ln l_1, ..., ln l_d] (eq. 5.9, chain rule for the log
 parameters; noise_var is held fixed and has no gradient entry), and the
 posterior mean and standard deviation of the latent function (no noise added)
-at test points (eqs. 2.25-2.26).
+at test points (eqs. 2.25-2.26). The equation numbers are quoted from memory.
 
 How to run (from the repository root):
 

@@ -11,7 +11,7 @@
 //! The first term is the Euler–Bernoulli deflection of a clamped cantilever
 //! under a tip load (e.g. W. C. Young & R. G. Budynas, *Roark's Formulas for
 //! Stress and Strain*, 7th ed., McGraw-Hill 2002, Table 8.1, case 1a with the
-//! load at the free end; J. M. Gere & B. J. Goodno, *Mechanics of Materials*,
+//! load at the free end, table and case numbers from memory; J. M. Gere & B. J. Goodno, *Mechanics of Materials*,
 //! appendix table "Deflections and slopes of beams", cantilever with a
 //! concentrated load at the free end). The second
 //! term is the rigid-body rotation of the beam about the spring-supported
@@ -337,7 +337,8 @@ mod tests {
     #[test]
     fn rigid_root_gives_handbook_tip_deflection() {
         // With k_theta -> infinity the root is clamped and the tip deflection is
-        // P L^3 / (3 E I) (Roark Table 8.1 case 1a; Gere & Goodno, cantilever tables).
+        // P L^3 / (3 E I) (Roark Table 8.1 case 1a, from memory; Gere & Goodno,
+        // cantilever tables).
         let (e, p, l, i) = (205.0, 5.0, 2.0, 800.0);
         let b = Beam::from_cli_units(e, 1e30, p, l, i);
         let expected_m = (p * 1e3) * l.powi(3) / (3.0 * (e * 1e9) * (i * 1e-8));

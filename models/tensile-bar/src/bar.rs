@@ -14,8 +14,8 @@
 //! K_{i,i+1} = −k_i. Each increment starts from a tangent predictor (the last converged
 //! tangent, with the new end displacement as a Dirichlet condition) and iterates
 //! K Δu = −R until max_i |R_i| ≤ [`RESIDUAL_RTOL`] · σ0 · min A. With the consistent
-//! tangent the iteration converges quadratically (Simo & Hughes 1998, ch. 1–2). The
-//! reaction at the loaded end is N of the last element.
+//! tangent the iteration converges quadratically (Simo & Hughes 1998, ch. 1–2,
+//! chapters from memory). The reaction at the loaded end is N of the last element.
 //!
 //! Newton is only locally convergent: a large first plastic increment can throw an
 //! iterate far past the saturation of the Voce curve, where the tangent vanishes.
@@ -27,7 +27,7 @@
 //!
 //! # References
 //! - J. C. Simo & T. J. R. Hughes (1998), *Computational Inelasticity*, Springer,
-//!   ch. 1–2.
+//!   ch. 1–2 (chapters quoted from memory).
 //! - T. J. R. Hughes (2000), *The Finite Element Method: Linear Static and Dynamic
 //!   Finite Element Analysis*, Dover, ch. 1 (two-node bar elements; chapter quoted
 //!   from memory).
@@ -644,13 +644,13 @@ mod tests {
 
     #[test]
     fn global_newton_converges_quadratically_on_a_plastic_step() {
-        // Newton with the consistent tangent: r₁ ≈ C r₀² near the solution
-        // (Simo & Hughes 1998, ch. 1–2). Take the converged solution u* of a plastic
+        // Newton with the consistent tangent: r₁ ≈ C r₀² near the solution (Simo & Hughes
+        // 1998, ch. 1–2, from memory). Take the converged solution u* of a plastic
         // increment (1.0 → 1.5 mm, whole gauge yielding, ends elastic), perturb it by
         // s·v, make one Newton iteration from the same committed state and compare the
         // residuals before (r₀) and after (r₁). Quadratic convergence: r₁ / r₀² stays
-        // constant as s shrinks, so r₁ falls by about 4 when s halves; linear
-        // convergence would give a constant r₁ / r₀ instead.
+        // constant as s shrinks, so r₁ falls by about 4 when s halves; linear convergence
+        // would give a constant r₁ / r₀ instead.
         let inp = specimen("displacements = 1.0");
         let bar = Bar::from_input(&inp);
         let ne = bar.n_elements();

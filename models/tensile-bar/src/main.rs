@@ -8,7 +8,7 @@
 //! hardening σy(ε̄p) = σ0 + Q (1 − exp(−b ε̄p)) (Voce 1948), integrated by the
 //! backward-Euler return mapping with a local Newton iteration and the consistent
 //! tangent; each load increment is solved by global Newton–Raphson (Simo & Hughes
-//! 1998, ch. 1–2). See `material.rs` and `bar.rs` for the formulas and references.
+//! 1998, ch. 1–2, chapters from memory). See `material.rs` and `bar.rs` for the formulas and references.
 //!
 //! Units: lengths in mm, E in GPa, stresses in MPa, forces written in kN.
 //! Standard library only; arguments and the input file are parsed by hand.

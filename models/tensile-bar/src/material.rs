@@ -23,11 +23,13 @@
 //!
 //! # References
 //! - E. Voce (1948), The relationship between stress and strain for homogeneous
-//!   deformation, *Journal of the Institute of Metals* 74, 537–562.
+//!   deformation, *Journal of the Institute of Metals* 74, 537–562 (volume and pages
+//!   from memory).
 //! - J. C. Simo & T. J. R. Hughes (1998), *Computational Inelasticity*, Springer,
 //!   ch. 1 (one-dimensional rate-independent plasticity: return mapping and the
-//!   algorithmic tangent modulus) and ch. 2 (the same for J2 flow). Section and box
-//!   numbers are not cited because they are quoted from memory.
+//!   algorithmic tangent modulus) and ch. 2 (the same for J2 flow); chapters quoted
+//!   from memory. Section and box numbers are not cited because they would be quoted
+//!   from memory too.
 
 /// Voce hardening law and Young's modulus, in MPa.
 #[derive(Debug, Clone, Copy, PartialEq)]
