@@ -794,7 +794,7 @@ fn every_source_file_is_in_the_library_or_the_binary_and_the_binary_has_no_cycle
 }
 
 #[test]
-#[ignore = "enabled once the workflow-layer cycles are gone"]
+
 fn library_files_have_no_import_cycles() {
     let lib = Graph::new("src/lib.rs", &read_from_disk);
     println!("top-level modules:\n{}", lib.collapsed());

@@ -7,10 +7,10 @@ use super::{check_stage, refine_design, up_to_date, Confirm, Event, Session};
 use crate::check::refine::{
     self as refinement, ConfirmationError, RefineRound, RefinementBody, Stopped,
 };
+use crate::check::RefineParams;
 use crate::layout::{design_sha256, read_posterior, Campaign, DESIGN_FILE, REFINEMENT_FILE};
 use crate::record::{read_record, sha256_file, write_record, Record};
 use crate::runs::RunOptions;
-use crate::check::RefineParams;
 use anyhow::{bail, Context, Result};
 
 /// Refine with settings `p` and `n_confirm` confirmation runs per check, running with

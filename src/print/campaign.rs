@@ -1,7 +1,7 @@
 //! The study and the state of its campaign: `validate`, `design`, `status`, `run`,
 //! `verify`.
 
-use super::sig;
+use super::format::sig;
 use assay::audit::{Freshness, Verification};
 use assay::campaign::StatusReport;
 use assay::design::Design;

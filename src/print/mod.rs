@@ -17,7 +17,10 @@ macro_rules! out {
 }
 
 mod campaign;
+mod format;
 mod results;
+
+pub use format::sig;
 
 pub use campaign::{
     print_design_quality, print_status, print_summary, print_verification, report_runs,
@@ -28,22 +31,6 @@ use assay::campaign::{Event, Events};
 use assay::check::refine::{self as refinement, Stopped};
 use results::{print_checks, print_confirmation_errors, print_fit};
 use std::io::Write;
-
-/// Significant-figure formatting for tables.
-pub fn sig(v: f64, digits: usize) -> String {
-    if !v.is_finite() {
-        return format!("{v}");
-    }
-    if v == 0.0 {
-        return "0".into();
-    }
-    let mag = v.abs().log10().floor() as i32;
-    if !(-4..=6).contains(&mag) {
-        return format!("{:.*e}", digits.saturating_sub(1), v);
-    }
-    let decimals = (digits as i32 - 1 - mag).max(0) as usize;
-    format!("{v:.decimals$}")
-}
 
 /// Prints each event of the steps as its block of output.
 pub struct Printer;

@@ -1,7 +1,7 @@
 //! The stages' results: the surrogate's validation, the posterior table, the checks and
 //! the confirmation errors.
 
-use super::sig;
+use super::format::sig;
 use assay::calibrate::{Diagnostics, ParameterSummary, PosteriorBody};
 use assay::check::refine::ConfirmationError;
 use assay::check::ChecksBody;

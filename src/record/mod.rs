@@ -4,12 +4,13 @@
 //! Output: an atomically written YAML file.
 //! Main types: [`Record`], [`Provenance`], [`ProvenanceClock`].
 
+mod hash;
 mod io;
 mod provenance;
 
+pub use hash::{sha256_file, sha256_hex};
 pub use io::{
-    read_record, sha256_file, sha256_hex, write_atomic, write_atomic_unsynced, write_record,
-    write_record_unsynced,
+    read_record, write_atomic, write_atomic_unsynced, write_record, write_record_unsynced,
 };
 pub use provenance::{Provenance, ProvenanceClock};
 

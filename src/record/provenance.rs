@@ -60,7 +60,7 @@ impl ProvenanceClock {
 
     /// Hash `path` and note it as an input.
     pub fn input(&mut self, path: &Path) -> std::io::Result<String> {
-        let h = super::sha256_file(path)?;
+        let h = super::hash::sha256_file(path)?;
         self.inputs.insert(path.display().to_string(), h.clone());
         Ok(h)
     }
@@ -68,7 +68,7 @@ impl ProvenanceClock {
     /// Hash `path` and note it under `name` (campaign files are named relative to the
     /// campaign folder, e.g. `design.yaml`).
     pub fn input_named(&mut self, name: &str, path: &Path) -> std::io::Result<String> {
-        let h = super::sha256_file(path)?;
+        let h = super::hash::sha256_file(path)?;
         self.inputs.insert(name.to_string(), h.clone());
         Ok(h)
     }

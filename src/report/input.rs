@@ -2,9 +2,9 @@
 //! the limits on how much of them it draws.
 
 use super::compute::{LooOutput, PredictiveQuantity};
-use crate::calibrate::Samples;
 use crate::audit::Verification;
 use crate::calibrate::PosteriorBody;
+use crate::calibrate::Samples;
 use crate::design::Design;
 use crate::record::Provenance;
 use crate::runs::RunBody;

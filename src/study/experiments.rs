@@ -2,11 +2,11 @@
 //! of the simulator as each experiment fills them.
 
 use super::checked::{Experiment, Noise, Parameter, Simulator};
+use super::checker::Checker;
 use super::data::FieldData;
 use super::placeholder;
 use super::sections::{is_folder_name, RESERVED};
 use super::spec::{ExperimentSpec, NoiseSpec, SettingValue, StudySpec};
-use super::validate::Checker;
 use std::collections::{BTreeMap, BTreeSet};
 use std::path::Path;
 

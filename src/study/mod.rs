@@ -11,6 +11,7 @@
 //! [`issues`]; this module adds the file and the line.
 
 mod checked;
+mod checker;
 mod data;
 mod error;
 mod experiments;

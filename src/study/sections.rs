@@ -5,11 +5,11 @@
 //! [`super::parse`].
 
 use super::checked::{Experiment, FileTemplate, OutputSpec, Parameter, Prior, Simulator};
+use super::checker::Checker;
 use super::placeholder;
 use super::spec::{
     CalibrationSpec, ChecksSpec, ControlDesign, ExecutionSpec, PriorSpec, SimulatorSpec, StudySpec,
 };
-use super::validate::Checker;
 use crate::check::params::RefineParams;
 use crate::design::params::DesignParams;
 use std::collections::BTreeSet;

@@ -1,7 +1,7 @@
 //! The check of `execution.slurm`, the settings handed to Slurm.
 
+use super::checker::Checker;
 use super::spec::SlurmSpec;
-use super::validate::Checker;
 
 /// `execution.slurm`: every value ends up in an `#SBATCH` line or the job script, so
 /// none may hold a line break, and the formatted ones must look like what Slurm takes.
